@@ -1,0 +1,1 @@
+//! emsplan: expected mean squares, error terms, power and cost for planned experiments.
