@@ -1,1 +1,16 @@
 //! emsplan: expected mean squares, error terms, power and cost for planned experiments.
+//!
+//! The pipeline runs one way: `spec` (the file as written) -> `layout` (validated) ->
+//! `term` and `ems` (the symbolic model, then numbers) -> `errorterm` (how each term is
+//! tested) -> the jobs (`check`, ...) -> `render`. `cli` is a thin shell over them.
+
+pub mod check;
+pub mod cli;
+pub mod ems;
+pub mod error;
+pub mod errorterm;
+pub mod layout;
+pub mod render;
+pub mod repair;
+pub mod spec;
+pub mod term;

@@ -1,0 +1,313 @@
+//! The `check` job: every term's df, expected mean square, error term and verdict,
+//! gathered into a result that the renderers print.
+
+use serde::{Serialize, Serializer};
+
+use crate::ems::{Ems, Model, Rational};
+use crate::error::Error;
+use crate::errorterm::{ErrorTerm, Verdict, denominator_text, error_terms, weight_text};
+use crate::layout::{Convention, Kind, Layout};
+use crate::repair::{Repair, repairs};
+
+#[derive(Debug, Clone, Serialize)]
+pub struct CheckReport {
+    pub name: String,
+    pub convention: Convention,
+    pub observations: u64,
+    pub terms: Vec<TermReport>,
+    /// Plain-words findings: what cannot be tested, and why.
+    pub findings: Vec<String>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct TermReport {
+    pub label: String,
+    pub live: Vec<String>,
+    pub within: Vec<String>,
+    pub residual: bool,
+    pub kind: Kind,
+    pub df: u64,
+    pub ems: Vec<Component>,
+    pub test: Option<TestReport>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Component {
+    /// The component's term label.
+    pub component: String,
+    #[serde(serialize_with = "number")]
+    pub coefficient: Rational,
+    /// The coefficient as an exact fraction, when it is not a whole number.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub exact: Option<String>,
+    #[serde(skip)]
+    pub symbol: String,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct TestReport {
+    pub verdict: Verdict,
+    pub denominator: Vec<DenominatorPart>,
+    /// Denominator df: the mean square's df for an exact test; Satterthwaite's
+    /// approximation for a synthetic one, once planning values exist.
+    pub denominator_df: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub reason: Option<String>,
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub repairs: Vec<RepairReport>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct DenominatorPart {
+    pub term: String,
+    #[serde(serialize_with = "number")]
+    pub coefficient: Rational,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct RepairReport {
+    pub change: String,
+    pub verdict: Verdict,
+    pub assumption: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub risk: Option<String>,
+}
+
+/// A rational as a JSON number: an integer when it is whole.
+fn number<S: Serializer>(r: &Rational, s: S) -> Result<S::Ok, S::Error> {
+    if r.is_integer() {
+        s.serialize_i128(r.to_integer())
+    } else {
+        s.serialize_f64(*r.numer() as f64 / *r.denom() as f64)
+    }
+}
+
+/// What `check` computes for a layout, before any rendering.
+pub struct Analysis {
+    pub model: Model,
+    pub df: Vec<u64>,
+    pub ems: Ems,
+    pub tests: Vec<Option<ErrorTerm>>,
+}
+
+impl Analysis {
+    pub fn new(layout: &Layout) -> Result<Analysis, Error> {
+        let model = Model::new(&layout.structure);
+        let df = model.df(&layout.levels);
+        let ems = model
+            .ems(&layout.levels)
+            .map_err(|e| Error::invalid(None, e.to_string()))?;
+        let tests = error_terms(&model, &ems, &df);
+        Ok(Analysis {
+            model,
+            df,
+            ems,
+            tests,
+        })
+    }
+}
+
+/// Runs the check of a layout under a convention.
+pub fn check(layout: &Layout, convention: Convention) -> Result<CheckReport, Error> {
+    let mut layout = layout.clone();
+    layout.structure.convention = convention;
+    let a = Analysis::new(&layout)?;
+    let s = &layout.structure;
+    let model = &a.model;
+    let labels: Vec<String> = model.terms.iter().map(|t| t.label(s)).collect();
+
+    let mut findings = Vec::new();
+    let terms = model
+        .terms
+        .iter()
+        .enumerate()
+        .map(|(i, t)| {
+            let mut ems: Vec<Component> = a.ems.rows[i]
+                .iter()
+                .map(|&(c, coefficient)| Component {
+                    component: labels[c].clone(),
+                    coefficient,
+                    exact: (!coefficient.is_integer()).then(|| weight_text(&coefficient)),
+                    symbol: symbol(model, c),
+                })
+                .collect();
+            // Trade notation: σ² first, then by growing coefficient, the term's own last.
+            ems.sort_by(|x, y| {
+                let own = |c: &Component| c.component == labels[i];
+                (own(x), x.coefficient).cmp(&(own(y), y.coefficient))
+            });
+            let test = a.tests[i].as_ref().map(|e| {
+                let reason = explain(&layout, &a, i, e);
+                let repairs = if e.verdict == Verdict::Untestable {
+                    repairs(&layout, *t)
+                        .iter()
+                        .map(|r| repair_report(&layout, r))
+                        .collect()
+                } else {
+                    Vec::new()
+                };
+                if let Some(r) = &reason {
+                    findings.push(finding(&labels[i], e.verdict, r, &repairs));
+                }
+                TestReport {
+                    verdict: e.verdict,
+                    denominator: e
+                        .denominator
+                        .iter()
+                        .map(|&(v, w)| DenominatorPart {
+                            term: labels[v].clone(),
+                            coefficient: w,
+                        })
+                        .collect(),
+                    denominator_df: match e.verdict {
+                        Verdict::Exact => Some(a.df[e.denominator[0].0] as f64),
+                        _ => None,
+                    },
+                    reason,
+                    repairs,
+                }
+            });
+            TermReport {
+                label: labels[i].clone(),
+                live: t.live_names(s).iter().map(|n| n.to_string()).collect(),
+                within: t.nest_names(s).iter().map(|n| n.to_string()).collect(),
+                residual: t.is_residual(),
+                kind: model.kinds[i],
+                df: a.df[i],
+                ems,
+                test,
+            }
+        })
+        .collect();
+    Ok(CheckReport {
+        name: layout.name.clone(),
+        convention,
+        observations: layout.observations(),
+        terms,
+        findings,
+    })
+}
+
+/// `σ²`, `σ²(bench)` or `κ²(light)`: the component in the trade's notation.
+pub fn symbol(model: &Model, c: usize) -> String {
+    let t = model.terms[c];
+    if t.is_residual() {
+        return "σ²".into();
+    }
+    let greek = match model.kinds[c] {
+        Kind::Fixed => "κ²",
+        Kind::Random => "σ²",
+    };
+    format!("{greek}({})", t.short_label(&model.structure))
+}
+
+/// Why a term is not simply tested, in words; `None` for an exact test.
+fn explain(layout: &Layout, a: &Analysis, t: usize, e: &ErrorTerm) -> Option<String> {
+    let s = &layout.structure;
+    let model = &a.model;
+    let label = |c: usize| model.terms[c].label(s);
+    match e.verdict {
+        Verdict::Exact => None,
+        Verdict::NotEstimable => {
+            let ones = one_level_factors(layout, model.terms[t].live);
+            Some(format!(
+                "it has 0 df ({} one level in each nest), so it has no mean square of its own; its variance is still in the model",
+                ones
+            ))
+        }
+        Verdict::Synthetic => {
+            let parts: Vec<(String, Rational)> =
+                e.denominator.iter().map(|&(v, w)| (label(v), w)).collect();
+            Some(format!(
+                "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946), which needs planning values",
+                denominator_text(&parts)
+            ))
+        }
+        Verdict::Untestable => {
+            if e.isolated.is_empty() {
+                return Some(
+                    "no combination of the other mean squares has the expected value it needs"
+                        .into(),
+                );
+            }
+            let parts: Vec<String> = e
+                .isolated
+                .iter()
+                .map(|&c| {
+                    let u = model.terms[c];
+                    let sym = symbol(model, c);
+                    if a.df[c] == 0 {
+                        if u.is_residual() {
+                            format!(
+                                "{sym} is in its expected mean square, but with one observation per cell the residual has no df"
+                            )
+                        } else {
+                            format!(
+                                "{sym} is in its expected mean square, but {} has 0 df ({} one level in each nest), so that variance is confounded with it",
+                                label(c),
+                                one_level_factors(layout, u.live)
+                            )
+                        }
+                    } else {
+                        format!("{sym} is in its expected mean square and in no other estimable mean square")
+                    }
+                })
+                .collect();
+            Some(parts.join("; "))
+        }
+    }
+}
+
+fn one_level_factors(layout: &Layout, live: u32) -> String {
+    let s = &layout.structure;
+    let names: Vec<&str> = s
+        .factors
+        .iter()
+        .enumerate()
+        .filter(|(i, _)| live & (1 << i) != 0 && layout.levels.per_factor[*i] == 1)
+        .map(|(_, f)| f.name.as_str())
+        .collect();
+    match names.len() {
+        0 => "no factor has".into(),
+        1 => format!("{} has", names[0]),
+        _ => format!("{} have", names.join(" and ")),
+    }
+}
+
+fn repair_report(layout: &Layout, r: &Repair) -> RepairReport {
+    RepairReport {
+        change: r.change.describe(&layout.structure),
+        verdict: r.verdict,
+        assumption: r.assumption,
+        risk: r.assumption.then(|| {
+            "an assumption, not a measurement: if the interaction is really there, the test is biased and its error rate is wrong".to_string()
+        }),
+    }
+}
+
+fn finding(label: &str, verdict: Verdict, reason: &str, repairs: &[RepairReport]) -> String {
+    let head = match verdict {
+        Verdict::Untestable => format!("{label} cannot be tested: {reason}."),
+        Verdict::NotEstimable => format!("{label} is not estimable: {reason}."),
+        Verdict::Synthetic => format!("{label}: {reason}."),
+        Verdict::Exact => format!("{label}: {reason}."),
+    };
+    if repairs.is_empty() {
+        return head;
+    }
+    let fixes: Vec<String> = repairs
+        .iter()
+        .map(|r| {
+            if r.assumption {
+                format!(
+                    "{} ({} test; an assumption: if it is really there the test is biased)",
+                    r.change,
+                    r.verdict.name()
+                )
+            } else {
+                format!("{} ({} test)", r.change, r.verdict.name())
+            }
+        })
+        .collect();
+    format!("{head} It becomes testable if you {}.", fixes.join("; or "))
+}

@@ -1,0 +1,426 @@
+//! The validated layout: factors, their kinds and nesting, level counts, replicates.
+//!
+//! A `Layout` cannot be built invalid: names are resolved to indices, nesting has no
+//! cycle, every count is at least one and their product fits in 64 bits. Code past this
+//! point does not re-check any of it.
+//!
+//! The layout is split in two so that the design search can share work: the `Structure`
+//! (which factors, fixed or random, what is nested in what, which interactions are assumed
+//! absent, the convention) fixes the symbolic expected mean squares; the `Levels` (level
+//! counts and replicates) are plugged in afterwards.
+
+use std::path::Path;
+
+use crate::error::Error;
+use crate::spec::{self, ConventionSpec, KindSpec, Spec};
+use crate::term::{Mask, Term, parse_term_label};
+
+/// At most this many factors: the model has up to 2^k - 1 terms.
+pub const MAX_FACTORS: usize = 12;
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Kind {
+    Fixed,
+    Random,
+}
+
+/// How random interaction effects with fixed factors are modelled.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, serde::Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Convention {
+    /// Cornfield and Tukey (1956): mixed interaction effects sum to zero over each fixed subscript.
+    Restricted,
+    /// Random interaction effects independent, no sum-to-zero constraint (as in Searle's texts).
+    Unrestricted,
+}
+
+impl Convention {
+    pub fn name(self) -> &'static str {
+        match self {
+            Convention::Restricted => "restricted",
+            Convention::Unrestricted => "unrestricted",
+        }
+    }
+}
+
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+pub struct Factor {
+    pub name: String,
+    pub kind: Kind,
+    /// Factors this one is directly nested in.
+    pub within: Mask,
+    /// Every factor this one is nested in, directly or through others.
+    pub ancestors: Mask,
+    /// Finite population a random factor's levels are drawn from.
+    pub population: Option<u64>,
+}
+
+/// What fixes the symbolic expected mean squares.
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+pub struct Structure {
+    pub factors: Vec<Factor>,
+    /// Live sets of interactions assumed absent; their df pool into the residual.
+    pub omitted: Vec<Mask>,
+    pub convention: Convention,
+}
+
+/// Level counts: `per_factor[i]` levels of factor i in each combination of its nests.
+#[derive(Debug, Clone, PartialEq, Eq, Hash)]
+pub struct Levels {
+    pub per_factor: Vec<u64>,
+    pub replicates: u64,
+}
+
+#[derive(Debug, Clone)]
+pub struct Layout {
+    pub name: String,
+    pub structure: Structure,
+    pub levels: Levels,
+}
+
+impl Structure {
+    pub fn factor_index(&self, name: &str) -> Option<usize> {
+        self.factors.iter().position(|f| f.name == name)
+    }
+
+    pub fn all_factors(&self) -> Mask {
+        (1u32 << self.factors.len()) - 1
+    }
+
+    /// Names of the factors, for error messages.
+    pub fn known_names(&self) -> String {
+        self.factors
+            .iter()
+            .map(|f| f.name.as_str())
+            .collect::<Vec<_>>()
+            .join(", ")
+    }
+
+    pub fn is_omitted(&self, live: Mask) -> bool {
+        self.omitted.contains(&live)
+    }
+
+    /// Builds a structure from factor definitions given by direct nesting only,
+    /// computing ancestors and refusing cycles.
+    pub fn new(
+        mut factors: Vec<Factor>,
+        omitted: Vec<Mask>,
+        convention: Convention,
+    ) -> Result<Self, String> {
+        let n = factors.len();
+        if n == 0 {
+            return Err("the layout has no factors: add at least one [[factor]] table".into());
+        }
+        if n > MAX_FACTORS {
+            return Err(format!(
+                "the layout has {n} factors; emsplan handles at most {MAX_FACTORS}"
+            ));
+        }
+        // Transitive closure of `within`, then a factor among its own ancestors is a cycle.
+        let mut anc: Vec<Mask> = factors.iter().map(|f| f.within).collect();
+        for _ in 0..n {
+            let next: Vec<Mask> = (0..n)
+                .map(|i| {
+                    let mut m = anc[i];
+                    for j in 0..n {
+                        if anc[i] & (1 << j) != 0 {
+                            m |= anc[j];
+                        }
+                    }
+                    m
+                })
+                .collect();
+            if next == anc {
+                break;
+            }
+            anc = next;
+        }
+        for i in 0..n {
+            if anc[i] & (1 << i) != 0 {
+                let cycle: Vec<&str> = (0..n)
+                    .filter(|&j| anc[i] & (1 << j) != 0 && anc[j] & (1 << i) != 0)
+                    .map(|j| factors[j].name.as_str())
+                    .collect();
+                return Err(format!(
+                    "factor \"{}\" is nested in itself through a cycle ({}): nesting must run one way",
+                    factors[i].name,
+                    cycle.join(" -> ")
+                ));
+            }
+        }
+        for (f, a) in factors.iter_mut().zip(anc) {
+            f.ancestors = a;
+        }
+        Ok(Structure {
+            factors,
+            omitted,
+            convention,
+        })
+    }
+}
+
+impl Levels {
+    /// Cells of the full layout: the product of every factor's level count.
+    pub fn cells(&self) -> u64 {
+        self.per_factor.iter().product()
+    }
+
+    pub fn observations(&self) -> u64 {
+        self.cells() * self.replicates
+    }
+}
+
+impl Layout {
+    /// Validates level counts against the structure: counts at least one, fixed factors
+    /// with two levels or more, populations no smaller than levels, totals within 64 bits.
+    pub fn new(name: String, structure: Structure, levels: Levels) -> Result<Self, String> {
+        check_levels(&structure, &levels)?;
+        Ok(Layout {
+            name,
+            structure,
+            levels,
+        })
+    }
+
+    pub fn observations(&self) -> u64 {
+        self.levels.observations()
+    }
+
+    /// Reads, parses and validates a layout file.
+    pub fn from_file(path: &Path) -> Result<(Layout, Spec, String), Error> {
+        let (spec, text) = spec::read(path)?;
+        let layout = Layout::from_spec(&spec, &text).map_err(|e| e.in_file(path))?;
+        Ok((layout, spec, text))
+    }
+
+    /// Turns a parsed spec into a layout, with line numbers taken from `text`.
+    pub fn from_spec(spec: &Spec, text: &str) -> Result<Layout, Error> {
+        let at = |span: std::ops::Range<usize>| Some(spec::line_of(text, span.start));
+        let layout_spec = spec.layout.as_ref().ok_or_else(|| {
+            Error::invalid(
+                None,
+                "missing [layout] table: add one with at least `replicates = N`",
+            )
+        })?;
+        if spec.factor.is_empty() {
+            return Err(Error::invalid(
+                None,
+                "the layout has no factors: add at least one [[factor]] table with name, kind and levels",
+            ));
+        }
+
+        // Names first, so that `within` can refer to factors declared later.
+        let mut names: Vec<String> = Vec::new();
+        for f in &spec.factor {
+            let name = f.get_ref().name.get_ref().trim().to_string();
+            let line = at(f.get_ref().name.span());
+            check_name(&name).map_err(|m| Error::invalid(line, m))?;
+            if names.contains(&name) {
+                return Err(Error::invalid(
+                    line,
+                    format!("factor \"{name}\" is declared twice: give each factor its own name"),
+                ));
+            }
+            names.push(name);
+        }
+        if names.len() > MAX_FACTORS {
+            return Err(Error::invalid(
+                None,
+                format!(
+                    "the layout has {} factors; emsplan handles at most {MAX_FACTORS}",
+                    names.len()
+                ),
+            ));
+        }
+        let known = names.join(", ");
+
+        let mut factors = Vec::new();
+        let mut per_factor = Vec::new();
+        for (i, f) in spec.factor.iter().enumerate() {
+            let f = f.get_ref();
+            let name = &names[i];
+            let mut within: Mask = 0;
+            for w in &f.within {
+                let wname = w.get_ref().trim();
+                let j = names.iter().position(|n| n == wname).ok_or_else(|| {
+                    Error::invalid(
+                        at(w.span()),
+                        format!(
+                            "factor \"{name}\" is nested in \"{wname}\", which is not a factor (known: {known})"
+                        ),
+                    )
+                })?;
+                if j == i {
+                    return Err(Error::invalid(
+                        at(w.span()),
+                        format!(
+                            "factor \"{name}\" is nested in itself: remove \"{wname}\" from its `within`"
+                        ),
+                    ));
+                }
+                within |= 1 << j;
+            }
+            let levels = positive(*f.levels.get_ref(), || {
+                format!("factor \"{name}\": levels must be a whole number of at least 1")
+            })
+            .map_err(|m| Error::invalid(at(f.levels.span()), m))?;
+            per_factor.push(levels);
+            let kind = match f.kind.get_ref() {
+                KindSpec::Fixed => Kind::Fixed,
+                KindSpec::Random => Kind::Random,
+            };
+            let population = match &f.population {
+                None => None,
+                Some(p) => {
+                    if kind == Kind::Fixed {
+                        return Err(Error::invalid(
+                            at(p.span()),
+                            format!(
+                                "factor \"{name}\" is fixed, so it has no population: remove `population` or make it random"
+                            ),
+                        ));
+                    }
+                    Some(
+                        positive(*p.get_ref(), || {
+                            format!(
+                                "factor \"{name}\": population must be a whole number of at least 1"
+                            )
+                        })
+                        .map_err(|m| Error::invalid(at(p.span()), m))?,
+                    )
+                }
+            };
+            factors.push(Factor {
+                name: name.clone(),
+                kind,
+                within,
+                ancestors: 0,
+                population,
+            });
+        }
+        let convention = match layout_spec.convention.as_ref().map(|c| *c.get_ref()) {
+            None | Some(ConventionSpec::Restricted) => Convention::Restricted,
+            Some(ConventionSpec::Unrestricted) => Convention::Unrestricted,
+        };
+        let mut structure =
+            Structure::new(factors, Vec::new(), convention).map_err(|m| Error::invalid(None, m))?;
+
+        for o in &layout_spec.omit {
+            let line = at(o.span());
+            let term = parse_term_label(&structure, o.get_ref())
+                .map_err(|m| Error::invalid(line, format!("omit: {m}")))?;
+            if term.live.count_ones() < 2 {
+                return Err(Error::invalid(
+                    line,
+                    format!(
+                        "omit: \"{}\" is a main effect; only interactions can be assumed absent",
+                        o.get_ref()
+                    ),
+                ));
+            }
+            if structure.omitted.contains(&term.live) {
+                return Err(Error::invalid(
+                    line,
+                    format!("omit: \"{}\" is listed twice", o.get_ref()),
+                ));
+            }
+            structure.omitted.push(term.live);
+        }
+
+        let replicates = positive(*layout_spec.replicates.get_ref(), || {
+            "replicates must be a whole number of at least 1 (observations per cell)".to_string()
+        })
+        .map_err(|m| Error::invalid(at(layout_spec.replicates.span()), m))?;
+        let levels = Levels {
+            per_factor,
+            replicates,
+        };
+        let name = layout_spec.name.clone().unwrap_or_default();
+        // Level-dependent checks, with the line of the offending factor where there is one.
+        if let Err(m) = check_levels(&structure, &levels) {
+            let line = spec
+                .factor
+                .iter()
+                .zip(&names)
+                .find(|(_, n)| m.contains(&format!("\"{n}\"")))
+                .map(|(f, _)| spec::line_of(text, f.get_ref().name.span().start));
+            return Err(Error::invalid(line, m));
+        }
+        Ok(Layout {
+            name,
+            structure,
+            levels,
+        })
+    }
+}
+
+/// A term made only of this structure's factors, with its nesting.
+pub fn term_of(structure: &Structure, live: Mask) -> Term {
+    let nest = structure
+        .factors
+        .iter()
+        .enumerate()
+        .filter(|(i, _)| live & (1 << i) != 0)
+        .fold(0, |m, (_, f)| m | f.ancestors);
+    Term { live, nest }
+}
+
+fn positive(v: i64, message: impl FnOnce() -> String) -> Result<u64, String> {
+    if v >= 1 { Ok(v as u64) } else { Err(message()) }
+}
+
+/// Factor names are words: a letter, then letters, digits, `_` or `-`.
+fn check_name(name: &str) -> Result<(), String> {
+    if name.is_empty() {
+        return Err("a factor has an empty name: give it a short name such as \"bench\"".into());
+    }
+    let mut chars = name.chars();
+    let first_ok = chars.next().is_some_and(|c| c.is_alphabetic());
+    let rest_ok = chars.all(|c| c.is_alphanumeric() || c == '_' || c == '-');
+    if !first_ok || !rest_ok {
+        return Err(format!(
+            "factor name \"{name}\" must start with a letter and hold only letters, digits, '_' or '-'"
+        ));
+    }
+    if name == "x" || name == "residual" || name == "replicate" || name == "overhead" {
+        return Err(format!(
+            "\"{name}\" is a reserved word in emsplan and cannot name a factor: choose another name"
+        ));
+    }
+    Ok(())
+}
+
+fn check_levels(structure: &Structure, levels: &Levels) -> Result<(), String> {
+    if levels.per_factor.len() != structure.factors.len() {
+        return Err("level counts do not match the factors".into());
+    }
+    if levels.replicates == 0 {
+        return Err("replicates must be at least 1".into());
+    }
+    let mut total: u64 = levels.replicates;
+    for (f, &n) in structure.factors.iter().zip(&levels.per_factor) {
+        if n == 0 {
+            return Err(format!("factor \"{}\": levels must be at least 1", f.name));
+        }
+        if f.kind == Kind::Fixed && n < 2 {
+            return Err(format!(
+                "factor \"{}\" is fixed with one level, so it compares nothing: give it at least 2 levels or remove it",
+                f.name
+            ));
+        }
+        if let Some(p) = f.population
+            && p < n
+        {
+            return Err(format!(
+                "factor \"{}\" has {n} levels drawn from a population of only {p}: the population must be at least the levels",
+                f.name
+            ));
+        }
+        total = total.checked_mul(n).ok_or_else(|| {
+            "the layout has more observations than fit in a 64-bit count: reduce the level counts"
+                .to_string()
+        })?;
+    }
+    Ok(())
+}

@@ -1,0 +1,233 @@
+//! Rendering of `check` results.
+
+use serde::Serialize;
+
+use super::{Format, csv_table, json, markdown_table, num, text_table};
+use crate::check::{CheckReport, TermReport, TestReport};
+use crate::errorterm::{Verdict, denominator_text, weight_text};
+use crate::layout::Kind;
+
+/// E(MS) in the trade's notation: `σ² + 6σ²(bench) + 24κ²(light)`.
+pub fn ems_text(term: &TermReport) -> String {
+    term.ems
+        .iter()
+        .map(|c| {
+            if c.coefficient == crate::ems::Rational::from_integer(1) {
+                c.symbol.clone()
+            } else {
+                format!("{}{}", weight_text(&c.coefficient), c.symbol)
+            }
+        })
+        .collect::<Vec<_>>()
+        .join(" + ")
+}
+
+/// What a term is tested over: a term label, a combination of mean squares, or a dash.
+pub fn tested_over(test: &TestReport) -> String {
+    match test.verdict {
+        Verdict::Exact => test.denominator[0].term.clone(),
+        Verdict::Synthetic => {
+            let parts: Vec<(String, crate::ems::Rational)> = test
+                .denominator
+                .iter()
+                .map(|d| (d.term.clone(), d.coefficient))
+                .collect();
+            denominator_text(&parts)
+        }
+        Verdict::Untestable | Verdict::NotEstimable => "none".into(),
+    }
+}
+
+fn den_df(test: &TestReport) -> String {
+    match test.denominator_df {
+        Some(df) => num(df),
+        None if test.verdict == Verdict::Synthetic => "needs priors".into(),
+        None => "-".into(),
+    }
+}
+
+fn kind(k: Kind) -> &'static str {
+    match k {
+        Kind::Fixed => "fixed",
+        Kind::Random => "random",
+    }
+}
+
+const HEADER: [&str; 7] = [
+    "term",
+    "kind",
+    "df",
+    "expected mean square",
+    "tested over",
+    "den. df",
+    "verdict",
+];
+
+fn rows(report: &CheckReport) -> Vec<Vec<String>> {
+    report
+        .terms
+        .iter()
+        .map(|t| {
+            let (over, ddf, verdict) = match &t.test {
+                Some(test) => (
+                    tested_over(test),
+                    den_df(test),
+                    test.verdict.name().to_string(),
+                ),
+                None => ("-".into(), "-".into(), "-".into()),
+            };
+            vec![
+                t.label.clone(),
+                kind(t.kind).into(),
+                t.df.to_string(),
+                ems_text(t),
+                over,
+                ddf,
+                verdict,
+            ]
+        })
+        .collect()
+}
+
+pub fn render(report: &CheckReport, format: Format) -> String {
+    match format {
+        Format::Json => json(report),
+        Format::Csv => csv_table(&HEADER, rows(report)),
+        Format::Markdown => {
+            let mut out = format!(
+                "## {}\n\n{} convention, {} observations.\n\n",
+                title(report),
+                report.convention.name(),
+                report.observations
+            );
+            out.push_str(&markdown_table(&HEADER, rows(report)));
+            if !report.findings.is_empty() {
+                out.push_str("\n### What needs attention\n\n");
+                for f in &report.findings {
+                    out.push_str(&format!("- {f}\n"));
+                }
+            }
+            out
+        }
+        Format::Text => {
+            let mut out = format!(
+                "{}: {} convention, {} observations\n\n",
+                title(report),
+                report.convention.name(),
+                report.observations
+            );
+            out.push_str(&text_table(&HEADER, rows(report)));
+            if report.findings.is_empty() {
+                out.push_str("\nEvery term with df has an exact F test.\n");
+            } else {
+                out.push_str("\nWhat needs attention, and why:\n");
+                for f in &report.findings {
+                    out.push_str(&format!("  - {f}\n"));
+                }
+            }
+            out
+        }
+    }
+}
+
+fn title(report: &CheckReport) -> String {
+    if report.name.is_empty() {
+        "Layout".into()
+    } else {
+        report.name.clone()
+    }
+}
+
+/// Both conventions side by side.
+#[derive(Debug, Serialize)]
+pub struct BothReport {
+    pub restricted: CheckReport,
+    pub unrestricted: CheckReport,
+    /// Terms whose error term differs between the conventions.
+    pub differ: Vec<String>,
+}
+
+impl BothReport {
+    pub fn new(restricted: CheckReport, unrestricted: CheckReport) -> Self {
+        let differ = restricted
+            .terms
+            .iter()
+            .zip(&unrestricted.terms)
+            .filter(|(r, u)| over(r) != over(u))
+            .map(|(r, _)| r.label.clone())
+            .collect();
+        BothReport {
+            restricted,
+            unrestricted,
+            differ,
+        }
+    }
+}
+
+fn over(t: &TermReport) -> String {
+    t.test.as_ref().map(tested_over).unwrap_or_default()
+}
+
+const BOTH_HEADER: [&str; 7] = [
+    "term",
+    "df",
+    "E(MS), restricted",
+    "tested over (restricted)",
+    "E(MS), unrestricted",
+    "tested over (unrestricted)",
+    "same test?",
+];
+
+fn both_rows(b: &BothReport) -> Vec<Vec<String>> {
+    b.restricted
+        .terms
+        .iter()
+        .zip(&b.unrestricted.terms)
+        .map(|(r, u)| {
+            let differs = b.differ.contains(&r.label);
+            vec![
+                r.label.clone(),
+                r.df.to_string(),
+                ems_text(r),
+                over(r),
+                ems_text(u),
+                over(u),
+                if r.residual {
+                    "-".into()
+                } else if differs {
+                    "DIFFERS".into()
+                } else {
+                    "same".into()
+                },
+            ]
+        })
+        .collect()
+}
+
+pub fn render_both(b: &BothReport, format: Format) -> String {
+    let header = &BOTH_HEADER;
+    let rows = || both_rows(b);
+    let summary = if b.differ.is_empty() {
+        "Every term is tested over the same error term under both conventions.".to_string()
+    } else {
+        format!(
+            "The error term depends on the convention for: {}. State the convention you used when you report these tests.",
+            b.differ.join(", ")
+        )
+    };
+    match format {
+        Format::Json => json(b),
+        Format::Csv => csv_table(header, rows()),
+        Format::Markdown => format!(
+            "## {}: both conventions\n\n{}\n{summary}\n",
+            title(&b.restricted),
+            markdown_table(header, rows())
+        ),
+        Format::Text => format!(
+            "{}: both conventions, {} observations\n\n{}\n{summary}\n",
+            title(&b.restricted),
+            b.restricted.observations,
+            text_table(header, rows())
+        ),
+    }
+}

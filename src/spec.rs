@@ -1,0 +1,122 @@
+//! The layout file exactly as the user wrote it: plain serde structs, unknown keys refused.
+//!
+//! Nothing here is validated beyond what serde and TOML check; `layout::Layout::from_spec`
+//! turns a `Spec` into a model that cannot be invalid.
+
+use std::collections::BTreeMap;
+use std::path::Path;
+
+use serde::Deserialize;
+use toml::Spanned;
+
+use crate::error::Error;
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct Spec {
+    pub alpha: Option<Spanned<f64>>,
+    pub layout: Option<LayoutSpec>,
+    #[serde(default)]
+    pub factor: Vec<Spanned<FactorSpec>>,
+    pub prior: Option<BTreeMap<String, Spanned<f64>>>,
+    pub effect: Option<BTreeMap<String, Spanned<EffectSpec>>>,
+    pub cost: Option<CostSpec>,
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LayoutSpec {
+    pub name: Option<String>,
+    pub replicates: Spanned<i64>,
+    pub convention: Option<Spanned<ConventionSpec>>,
+    #[serde(default)]
+    pub omit: Vec<Spanned<String>>,
+}
+
+#[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]
+#[serde(rename_all = "lowercase")]
+pub enum ConventionSpec {
+    Restricted,
+    Unrestricted,
+}
+
+#[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]
+#[serde(rename_all = "lowercase")]
+pub enum KindSpec {
+    Fixed,
+    Random,
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FactorSpec {
+    pub name: Spanned<String>,
+    pub kind: Spanned<KindSpec>,
+    pub levels: Spanned<i64>,
+    #[serde(default)]
+    pub within: Vec<Spanned<String>>,
+    pub population: Option<Spanned<i64>>,
+}
+
+/// A smallest effect worth detecting: a bare number is the root mean square of the
+/// term's effects; `{ range = D }` is the least favourable configuration of a main effect.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(untagged)]
+pub enum EffectSpec {
+    RootMeanSquare(f64),
+    Range(RangeSpec),
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RangeSpec {
+    pub range: f64,
+}
+
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CostSpec {
+    pub overhead: Option<Spanned<f64>>,
+    #[serde(default)]
+    pub per_unit: BTreeMap<String, Spanned<f64>>,
+}
+
+/// Reads and parses a layout file. The file must be UTF-8 text.
+pub fn read(path: &Path) -> Result<(Spec, String), Error> {
+    let bytes = std::fs::read(path).map_err(|source| Error::Io {
+        path: path.display().to_string(),
+        source,
+    })?;
+    let text = String::from_utf8(bytes).map_err(|_| Error::NotText {
+        path: path.display().to_string(),
+    })?;
+    if text.contains('\0') {
+        return Err(Error::NotText {
+            path: path.display().to_string(),
+        });
+    }
+    let spec = parse(&text).map_err(|e| e.in_file(path))?;
+    Ok((spec, text))
+}
+
+/// Parses layout text; errors carry the line but no file name yet.
+pub fn parse(text: &str) -> Result<Spec, Error> {
+    toml::from_str::<Spec>(text).map_err(|e| {
+        let line = e.span().map(|s| line_of(text, s.start));
+        Error::Syntax {
+            file: None,
+            line,
+            message: e.message().trim().to_string(),
+        }
+    })
+}
+
+/// 1-based line number of a byte offset.
+pub fn line_of(text: &str, offset: usize) -> usize {
+    let end = offset.min(text.len());
+    text.as_bytes()[..end]
+        .iter()
+        .filter(|&&b| b == b'\n')
+        .count()
+        + 1
+}
