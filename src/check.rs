@@ -7,6 +7,7 @@ use crate::ems::{Ems, Model, Rational};
 use crate::error::Error;
 use crate::errorterm::{ErrorTerm, Verdict, denominator_text, error_terms, weight_text};
 use crate::layout::{Convention, Kind, Layout};
+use crate::planning::{Cost, PlanningValues, cost, plan_tests};
 use crate::repair::{Repair, repairs};
 
 #[derive(Debug, Clone, Serialize)]
@@ -14,6 +15,13 @@ pub struct CheckReport {
     pub name: String,
     pub convention: Convention,
     pub observations: u64,
+    pub alpha: f64,
+    /// The power minimum detectable effects are solved for.
+    pub target_power: f64,
+    /// Overhead plus per-unit costs; null without a [cost] table.
+    pub cost: Option<Cost>,
+    /// What the planning values leave out (random terms without a prior, and so on).
+    pub planning_notes: Vec<String>,
     pub terms: Vec<TermReport>,
     /// Plain-words findings: what cannot be tested, and why.
     pub findings: Vec<String>,
@@ -51,6 +59,11 @@ pub struct TestReport {
     /// Denominator df: the mean square's df for an exact test; Satterthwaite's
     /// approximation for a synthetic one, once planning values exist.
     pub denominator_df: Option<f64>,
+    /// Power at alpha under the planning values; null where it cannot be computed.
+    pub power: Option<f64>,
+    /// Smallest effect found with the target power: a root mean square of effects for a
+    /// fixed term, a standard deviation for a random one, in the response's units.
+    pub min_detectable: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub reason: Option<String>,
     #[serde(skip_serializing_if = "Vec::is_empty")]
@@ -107,11 +120,17 @@ impl Analysis {
     }
 }
 
-/// Runs the check of a layout under a convention.
-pub fn check(layout: &Layout, convention: Convention) -> Result<CheckReport, Error> {
+/// Runs the check of a layout under a convention, with power and cost where planning
+/// values are given.
+pub fn check(
+    layout: &Layout,
+    convention: Convention,
+    plan: &PlanningValues,
+) -> Result<CheckReport, Error> {
     let mut layout = layout.clone();
     layout.structure.convention = convention;
     let a = Analysis::new(&layout)?;
+    let plans = plan_tests(&a.model, &a.ems, &a.df, &a.tests, plan, &layout.levels);
     let s = &layout.structure;
     let model = &a.model;
     let labels: Vec<String> = model.terms.iter().map(|t| t.label(s)).collect();
@@ -159,10 +178,13 @@ pub fn check(layout: &Layout, convention: Convention) -> Result<CheckReport, Err
                             coefficient: w,
                         })
                         .collect(),
-                    denominator_df: match e.verdict {
-                        Verdict::Exact => Some(a.df[e.denominator[0].0] as f64),
+                    denominator_df: match (e.verdict, &plans[i]) {
+                        (_, Some(p)) => p.denominator_df,
+                        (Verdict::Exact, None) => Some(a.df[e.denominator[0].0] as f64),
                         _ => None,
                     },
+                    power: plans[i].and_then(|p| p.power),
+                    min_detectable: plans[i].and_then(|p| p.min_detectable),
                     reason,
                     repairs,
                 }
@@ -183,9 +205,54 @@ pub fn check(layout: &Layout, convention: Convention) -> Result<CheckReport, Err
         name: layout.name.clone(),
         convention,
         observations: layout.observations(),
+        alpha: plan.alpha,
+        target_power: plan.power,
+        cost: plan
+            .cost
+            .as_ref()
+            .map(|c| cost(c, &layout.structure, &layout.levels)),
+        planning_notes: planning_notes(&a.model, plan),
         terms,
         findings,
     })
+}
+
+/// What the planning values leave out, in words.
+fn planning_notes(model: &Model, plan: &PlanningValues) -> Vec<String> {
+    let s = &model.structure;
+    if !plan.has_priors() {
+        return vec![
+            "no [prior] table: power, minimum detectable effects and Satterthwaite df need the standard deviations of the random terms".into(),
+        ];
+    }
+    let mut notes = Vec::new();
+    let missing: Vec<String> = model
+        .terms
+        .iter()
+        .enumerate()
+        .filter(|(i, t)| model.kinds[*i] == Kind::Random && !plan.priors.contains_key(&t.live))
+        .map(|(_, t)| t.label(s))
+        .collect();
+    if !missing.is_empty() {
+        notes.push(format!(
+            "taken as zero, having no [prior]: {} (their variance adds nothing to any expected mean square, and their own tests get no power)",
+            missing.join(", ")
+        ));
+    }
+    let no_effect: Vec<String> = model
+        .terms
+        .iter()
+        .enumerate()
+        .filter(|(i, t)| model.kinds[*i] == Kind::Fixed && !plan.effects.contains_key(&t.live))
+        .map(|(_, t)| t.label(s))
+        .collect();
+    if !no_effect.is_empty() {
+        notes.push(format!(
+            "no [effect] given, so no power (the minimum detectable effect is still shown): {}",
+            no_effect.join(", ")
+        ));
+    }
+    notes
 }
 
 /// `σ²`, `σ²(bench)` or `κ²(light)`: the component in the trade's notation.
@@ -219,7 +286,7 @@ fn explain(layout: &Layout, a: &Analysis, t: usize, e: &ErrorTerm) -> Option<Str
             let parts: Vec<(String, Rational)> =
                 e.denominator.iter().map(|&(v, w)| (label(v), w)).collect();
             Some(format!(
-                "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946), which needs planning values",
+                "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946) under the planning values",
                 denominator_text(&parts)
             ))
         }

@@ -14,3 +14,4 @@ pub mod render;
 pub mod repair;
 pub mod spec;
 pub mod term;
+pub mod planning;

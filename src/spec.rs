@@ -21,6 +21,7 @@ pub struct Spec {
     pub prior: Option<BTreeMap<String, Spanned<f64>>>,
     pub effect: Option<BTreeMap<String, Spanned<EffectSpec>>>,
     pub cost: Option<CostSpec>,
+    pub search: Option<SearchSpec>,
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -79,6 +80,32 @@ pub struct CostSpec {
     pub overhead: Option<Spanned<f64>>,
     #[serde(default)]
     pub per_unit: BTreeMap<String, Spanned<f64>>,
+}
+
+/// The design search's goal and space (a problem file is a layout file with this table).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct SearchSpec {
+    pub budget: Option<Spanned<f64>>,
+    #[serde(default)]
+    pub must_test: Vec<Spanned<String>>,
+    pub min_df: Option<Spanned<f64>>,
+    pub exact_only: Option<bool>,
+    pub target_power: Option<Spanned<f64>>,
+    /// Inclusive ranges of level counts by factor name, and `replicates`.
+    #[serde(default)]
+    pub levels: BTreeMap<String, Spanned<Vec<i64>>>,
+    #[serde(default)]
+    pub choice: Vec<Spanned<ChoiceSpec>>,
+}
+
+/// Structural alternatives for one factor: nesting choices, or an optional layer.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ChoiceSpec {
+    pub factor: Spanned<String>,
+    pub within: Option<Vec<Vec<String>>>,
+    pub optional: Option<bool>,
 }
 
 /// Reads and parses a layout file. The file must be UTF-8 text.

@@ -63,20 +63,45 @@ const HEADER: [&str; 7] = [
     "verdict",
 ];
 
+const PLAN_HEADER: [&str; 9] = [
+    "term",
+    "kind",
+    "df",
+    "expected mean square",
+    "tested over",
+    "den. df",
+    "verdict",
+    "power",
+    "min. effect",
+];
+
+/// Whether the report carries power figures (the layout had planning values).
+fn planned(report: &CheckReport) -> bool {
+    report
+        .terms
+        .iter()
+        .any(|t| t.test.as_ref().is_some_and(|x| x.min_detectable.is_some() || x.power.is_some()))
+}
+
+fn header(report: &CheckReport) -> &'static [&'static str] {
+    if planned(report) { &PLAN_HEADER } else { &HEADER }
+}
+
+fn opt(x: Option<f64>) -> String {
+    x.map_or("-".into(), |v| format!("{v:.3}"))
+}
+
 fn rows(report: &CheckReport) -> Vec<Vec<String>> {
+    let with_plan = planned(report);
     report
         .terms
         .iter()
         .map(|t| {
             let (over, ddf, verdict) = match &t.test {
-                Some(test) => (
-                    tested_over(test),
-                    den_df(test),
-                    test.verdict.name().to_string(),
-                ),
+                Some(test) => (tested_over(test), den_df(test), test.verdict.name().to_string()),
                 None => ("-".into(), "-".into(), "-".into()),
             };
-            vec![
+            let mut row = vec![
                 t.label.clone(),
                 kind(t.kind).into(),
                 t.df.to_string(),
@@ -84,15 +109,67 @@ fn rows(report: &CheckReport) -> Vec<Vec<String>> {
                 over,
                 ddf,
                 verdict,
-            ]
+            ];
+            if with_plan {
+                row.push(opt(t.test.as_ref().and_then(|x| x.power)));
+                row.push(opt(t.test.as_ref().and_then(|x| x.min_detectable)));
+            }
+            row
         })
         .collect()
+}
+
+/// The cost breakdown, one line per priced term.
+fn cost_text(report: &CheckReport) -> Option<String> {
+    let cost = report.cost.as_ref()?;
+    let mut out = format!("Cost: {} in all", num(cost.total));
+    let mut parts: Vec<String> = Vec::new();
+    if cost.overhead > 0.0 {
+        parts.push(format!("overhead {}", num(cost.overhead)));
+    }
+    for line in &cost.breakdown {
+        parts.push(format!(
+            "{} {} x {} = {}",
+            line.term,
+            line.units,
+            num(line.per_unit),
+            num(line.cost)
+        ));
+    }
+    if !parts.is_empty() {
+        out.push_str(&format!(" ({})", parts.join("; ")));
+    }
+    out.push('.');
+    Some(out)
+}
+
+/// The caution that goes wherever users decide on power.
+pub const CAUTION: &str = "Power and minimum detectable effects rest on the planning values, which are guesses: they are only as good as those guesses. Have a statistician review designs that carry real cost or risk.";
+
+fn planning_text(report: &CheckReport, bullet: &str) -> String {
+    let mut out = String::new();
+    if planned(report) {
+        out.push_str(&format!(
+            "\nPower at alpha = {}. min. effect: the smallest effect found with power {} (fixed terms: root mean square of effects; random terms: standard deviation), in the response's units.\n",
+            report.alpha, report.target_power
+        ));
+    }
+    for n in &report.planning_notes {
+        out.push_str(&format!("{bullet}{n}\n"));
+    }
+    if let Some(c) = cost_text(report) {
+        out.push_str(&format!("\n{c}\n"));
+    }
+    if planned(report) {
+        out.push_str(&format!("\n{CAUTION}\n"));
+    }
+    out
 }
 
 pub fn render(report: &CheckReport, format: Format) -> String {
     match format {
         Format::Json => json(report),
-        Format::Csv => csv_table(&HEADER, rows(report)),
+        Format::Csv => csv_table(header(report), rows(report)),
         Format::Markdown => {
             let mut out = format!(
                 "## {}\n\n{} convention, {} observations.\n\n",
@@ -100,7 +177,8 @@ pub fn render(report: &CheckReport, format: Format) -> String {
                 report.convention.name(),
                 report.observations
             );
-            out.push_str(&markdown_table(&HEADER, rows(report)));
+            out.push_str(&markdown_table(header(report), rows(report)));
+            out.push_str(&planning_text(report, "- "));
             if !report.findings.is_empty() {
                 out.push_str("\n### What needs attention\n\n");
                 for f in &report.findings {
@@ -116,7 +194,8 @@ pub fn render(report: &CheckReport, format: Format) -> String {
                 report.convention.name(),
                 report.observations
             );
-            out.push_str(&text_table(&HEADER, rows(report)));
+            out.push_str(&text_table(header(report), rows(report)));
+            out.push_str(&planning_text(report, "  note: "));
             if report.findings.is_empty() {
                 out.push_str("\nEvery term with df has an exact F test.\n");
             } else {
