@@ -62,7 +62,10 @@ impl PlanningArgs {
 }
 
 /// Reads a layout file with its planning values, command-line overrides applied.
-pub fn load(path: &std::path::Path, args: &PlanningArgs) -> Result<(Layout, PlanningValues), Error> {
+pub fn load(
+    path: &std::path::Path,
+    args: &PlanningArgs,
+) -> Result<(Layout, PlanningValues), Error> {
     let (layout, spec, text) = Layout::from_file(path)?;
     let mut plan = PlanningValues::from_spec(&spec, &text, &layout).map_err(|e| e.in_file(path))?;
     args.apply(&mut plan)?;

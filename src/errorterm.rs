@@ -15,9 +15,20 @@
 //! hold only components of the target: the classical construction of quasi-F
 //! denominators (e.g. Montgomery, Design and Analysis of Experiments, chapter on random
 //! and mixed models).
+//!
+//! The weights need no search. Component U appears in E(MS_V) only when U's subscripts
+//! include V's, and every candidate V carries its own component with a non-zero
+//! coefficient, so the candidates' expected mean squares form a triangular system in the
+//! containment order of their subscripts. Taken from the fewest subscripts up, each
+//! candidate's weight is fixed by the coefficient of its own component:
+//!
+//! w_V = (t_V - Σ_{V' ⊊ V} w_V' c_{V'V}) / c_{VV},
+//!
+//! and the remaining components (those of terms without a mean square) only check that
+//! the combination holds. The solution, when it exists, is unique among the candidates,
+//! so it is also the one with the fewest mean squares; one weight of 1 is an exact test.
 
-use itertools::Itertools;
-use num_traits::{CheckedDiv, CheckedMul, CheckedSub, Signed, Zero};
+use num_traits::{CheckedAdd, CheckedDiv, CheckedMul, CheckedSub, Signed, Zero};
 use serde::Serialize;
 
 use crate::ems::{Ems, Model, Rational};
@@ -55,10 +66,6 @@ pub struct ErrorTerm {
     pub isolated: Vec<usize>,
 }
 
-/// How many subsets of candidate mean squares to try before settling for the
-/// combination that elimination gives (valid, but maybe not the shortest).
-const SUBSET_BUDGET: usize = 20_000;
-
 /// The error term of every term; `None` for the residual, which is not tested.
 pub fn error_terms(model: &Model, ems: &Ems, df: &[u64]) -> Vec<Option<ErrorTerm>> {
     (0..model.terms.len())
@@ -86,10 +93,13 @@ pub fn error_term(model: &Model, ems: &Ems, df: &[u64], t: usize) -> ErrorTerm {
         .filter(|(c, _)| *c != t)
         .copied()
         .collect();
-    let in_target = |c: usize| target.iter().any(|(tc, _)| *tc == c);
+    let mut in_target = vec![false; model.terms.len()];
+    for &(c, _) in &target {
+        in_target[c] = true;
+    }
     let candidates: Vec<usize> = (0..model.terms.len())
         .filter(|&v| v != t && df[v] > 0)
-        .filter(|&v| ems.rows[v].iter().all(|(c, _)| in_target(*c)))
+        .filter(|&v| ems.rows[v].iter().all(|(c, _)| in_target[*c]))
         .collect();
 
     if let Some(&v) = candidates.iter().find(|&&v| ems.rows[v] == target) {
@@ -100,14 +110,16 @@ pub fn error_term(model: &Model, ems: &Ems, df: &[u64], t: usize) -> ErrorTerm {
         };
     }
 
+    let mut carried = vec![false; model.terms.len()];
+    for &v in &candidates {
+        for &(c, _) in &ems.rows[v] {
+            carried[c] = true;
+        }
+    }
     let isolated: Vec<usize> = target
         .iter()
         .map(|(c, _)| *c)
-        .filter(|&c| {
-            !candidates
-                .iter()
-                .any(|&v| ems.rows[v].iter().any(|(vc, _)| *vc == c))
-        })
+        .filter(|&c| !carried[c])
         .collect();
     let untestable = |isolated: Vec<usize>| ErrorTerm {
         verdict: Verdict::Untestable,
@@ -118,100 +130,68 @@ pub fn error_term(model: &Model, ems: &Ems, df: &[u64], t: usize) -> ErrorTerm {
         return untestable(isolated);
     }
 
-    let components: Vec<usize> = target.iter().map(|(c, _)| *c).collect();
-    let column =
-        |v: usize| -> Vec<Rational> { components.iter().map(|&c| ems.coefficient(v, c)).collect() };
-    let rhs: Vec<Rational> = target.iter().map(|(_, v)| *v).collect();
-
-    let mut tried = 0usize;
-    for size in 2..=candidates.len().min(4) {
-        for subset in candidates.iter().copied().combinations(size) {
-            tried += 1;
-            if tried > SUBSET_BUDGET {
-                break;
-            }
-            let columns: Vec<Vec<Rational>> = subset.iter().map(|&v| column(v)).collect();
-            if let Some(w) = solve(&columns, &rhs)
-                && w.iter().all(|x| !x.is_zero())
-            {
-                return ErrorTerm {
-                    verdict: Verdict::Synthetic,
-                    denominator: subset.into_iter().zip(w).collect(),
-                    isolated: Vec::new(),
-                };
-            }
-        }
-        if tried > SUBSET_BUDGET {
-            break;
-        }
-    }
-    // Fall back on elimination over every candidate: a basic solution, if one exists.
-    let columns: Vec<Vec<Rational>> = candidates.iter().map(|&v| column(v)).collect();
-    match solve(&columns, &rhs) {
-        Some(w) => {
-            let denominator: Vec<(usize, Rational)> = candidates
-                .iter()
-                .copied()
-                .zip(w)
-                .filter(|(_, x)| !x.is_zero())
-                .collect();
+    match triangular_weights(model, ems, &target, &candidates) {
+        Some(denominator)
+            if denominator.len() == 1 && denominator[0].1 == Rational::from_integer(1) =>
+        {
             ErrorTerm {
-                verdict: Verdict::Synthetic,
+                verdict: Verdict::Exact,
                 denominator,
                 isolated: Vec::new(),
             }
         }
-        None => untestable(Vec::new()),
+        Some(denominator) if !denominator.is_empty() => ErrorTerm {
+            verdict: Verdict::Synthetic,
+            denominator,
+            isolated: Vec::new(),
+        },
+        _ => untestable(Vec::new()),
     }
 }
 
-/// Solves Σ_k w_k columns[k] = rhs exactly. Returns a basic solution (free variables at
-/// zero) or `None` when the system is inconsistent or the arithmetic would overflow.
-pub fn solve(columns: &[Vec<Rational>], rhs: &[Rational]) -> Option<Vec<Rational>> {
-    let rows = rhs.len();
-    let cols = columns.len();
-    // Augmented matrix, row-major.
-    let mut m: Vec<Vec<Rational>> = (0..rows)
-        .map(|r| {
-            let mut row: Vec<Rational> = columns.iter().map(|c| c[r]).collect();
-            row.push(rhs[r]);
-            row
-        })
-        .collect();
-    let mut pivots: Vec<(usize, usize)> = Vec::new();
-    let mut r = 0;
-    for c in 0..cols {
-        if r == rows {
-            break;
-        }
-        let Some(p) = (r..rows).find(|&i| !m[i][c].is_zero()) else {
-            continue;
-        };
-        m.swap(r, p);
-        let pivot = m[r][c];
-        for k in c..=cols {
-            m[r][k] = m[r][k].checked_div(&pivot)?;
-        }
-        for i in 0..rows {
-            if i != r && !m[i][c].is_zero() {
-                let factor = m[i][c];
-                for k in c..=cols {
-                    let d = m[r][k].checked_mul(&factor)?;
-                    m[i][k] = m[i][k].checked_sub(&d)?;
-                }
+/// Solves Σ_V w_V E(MS_V) = target by back-substitution in the containment order (see the
+/// module notes). Returns the non-zero weights, or `None` when the combination does not
+/// exist or the arithmetic would overflow.
+fn triangular_weights(
+    model: &Model,
+    ems: &Ems,
+    target: &[(usize, Rational)],
+    candidates: &[usize],
+) -> Option<Vec<(usize, Rational)>> {
+    let size = |c: usize| model.terms[c].subscripts().count_ones();
+    let mut order: Vec<usize> = target.iter().map(|(c, _)| *c).collect();
+    order.sort_by_key(|&c| size(c));
+    let mut want = vec![Rational::zero(); model.terms.len()];
+    for &(c, v) in target {
+        want[c] = v;
+    }
+    // acc[U] = Σ over solved candidates V of w_V × c_{VU}.
+    let mut acc = vec![Rational::zero(); model.terms.len()];
+    let mut is_candidate = vec![false; model.terms.len()];
+    for &v in candidates {
+        is_candidate[v] = true;
+    }
+    let mut weights = Vec::new();
+    for u in order {
+        let residual = want[u].checked_sub(&acc[u])?;
+        if !is_candidate[u] {
+            if !residual.is_zero() {
+                return None;
             }
+            continue;
         }
-        pivots.push((r, c));
-        r += 1;
+        let own = ems.coefficient(u, u);
+        let w = residual.checked_div(&own)?;
+        if w.is_zero() {
+            continue;
+        }
+        for &(c, x) in &ems.rows[u] {
+            acc[c] = acc[c].checked_add(&w.checked_mul(&x)?)?;
+        }
+        weights.push((u, w));
     }
-    if (r..rows).any(|i| !m[i][cols].is_zero()) {
-        return None;
-    }
-    let mut w = vec![Rational::zero(); cols];
-    for (row, col) in pivots {
-        w[col] = m[row][cols];
-    }
-    Some(w)
+    weights.sort_by_key(|(v, _)| *v);
+    Some(weights)
 }
 
 /// True when Σ w_V E(MS_V) equals E(MS_T) less T's own component, identically.

@@ -6,12 +6,13 @@
 
 pub mod check;
 pub mod cli;
+pub mod dist;
 pub mod ems;
 pub mod error;
 pub mod errorterm;
 pub mod layout;
+pub mod planning;
 pub mod render;
 pub mod repair;
 pub mod spec;
 pub mod term;
-pub mod planning;

@@ -76,10 +76,12 @@ impl PlanningValues {
         };
         let model = Model::new(s);
         let mut priors = BTreeMap::new();
-        if let Some(table) = &spec.prior {
+        if let Some(spanned) = &spec.prior {
+            let table = spanned.get_ref();
             for (key, value) in table {
                 let line = at(value.span());
-                let term = resolve(s, key).map_err(|m| Error::invalid(line, format!("[prior] {m}")))?;
+                let term =
+                    resolve(s, key).map_err(|m| Error::invalid(line, format!("[prior] {m}")))?;
                 if !term.is_residual() && term.kind(s) == Kind::Fixed {
                     return Err(Error::invalid(
                         line,
@@ -91,7 +93,9 @@ impl PlanningValues {
                 if !term.is_residual() && !model.terms.contains(&term) {
                     return Err(Error::invalid(
                         line,
-                        format!("[prior] \"{key}\" is assumed absent (in `omit`), so it has no variance"),
+                        format!(
+                            "[prior] \"{key}\" is assumed absent (in `omit`), so it has no variance"
+                        ),
                     ));
                 }
                 let sd = non_negative(*value.get_ref())
@@ -100,7 +104,7 @@ impl PlanningValues {
             }
             if !priors.contains_key(&REPLICATE) {
                 return Err(Error::invalid(
-                    None,
+                    at(spanned.span()),
                     "[prior] needs `residual`, the standard deviation between observations within a cell",
                 ));
             }
@@ -109,7 +113,8 @@ impl PlanningValues {
         if let Some(table) = &spec.effect {
             for (key, value) in table {
                 let line = at(value.span());
-                let term = resolve(s, key).map_err(|m| Error::invalid(line, format!("[effect] {m}")))?;
+                let term =
+                    resolve(s, key).map_err(|m| Error::invalid(line, format!("[effect] {m}")))?;
                 if term.is_residual() || term.kind(s) == Kind::Random {
                     return Err(Error::invalid(
                         line,
@@ -125,9 +130,11 @@ impl PlanningValues {
                     ));
                 }
                 let effect = match value.get_ref() {
-                    EffectSpec::RootMeanSquare(x) => Effect::RootMeanSquare(
-                        non_negative(*x).map_err(|m| Error::invalid(line, format!("[effect] \"{key}\": {m}")))?,
-                    ),
+                    EffectSpec::RootMeanSquare(x) => {
+                        Effect::RootMeanSquare(non_negative(*x).map_err(|m| {
+                            Error::invalid(line, format!("[effect] \"{key}\": {m}"))
+                        })?)
+                    }
                     EffectSpec::Range(r) => {
                         if term.live.count_ones() != 1 {
                             return Err(Error::invalid(
@@ -137,10 +144,9 @@ impl PlanningValues {
                                 ),
                             ));
                         }
-                        Effect::Range(
-                            non_negative(r.range)
-                                .map_err(|m| Error::invalid(line, format!("[effect] \"{key}\" range: {m}")))?,
-                        )
+                        Effect::Range(non_negative(r.range).map_err(|m| {
+                            Error::invalid(line, format!("[effect] \"{key}\" range: {m}"))
+                        })?)
                     }
                 };
                 effects.insert(term.live, effect);
@@ -151,16 +157,18 @@ impl PlanningValues {
             Some(c) => {
                 let overhead = match &c.overhead {
                     None => 0.0,
-                    Some(o) => non_negative(*o.get_ref())
-                        .map_err(|m| Error::invalid(at(o.span()), format!("[cost] overhead: {m}")))?,
+                    Some(o) => non_negative(*o.get_ref()).map_err(|m| {
+                        Error::invalid(at(o.span()), format!("[cost] overhead: {m}"))
+                    })?,
                 };
                 let mut per_unit = Vec::new();
                 for (key, value) in &c.per_unit {
                     let line = at(value.span());
                     let term = resolve(s, key)
                         .map_err(|m| Error::invalid(line, format!("[cost.per_unit] {m}")))?;
-                    let price = non_negative(*value.get_ref())
-                        .map_err(|m| Error::invalid(line, format!("[cost.per_unit] \"{key}\": {m}")))?;
+                    let price = non_negative(*value.get_ref()).map_err(|m| {
+                        Error::invalid(line, format!("[cost.per_unit] \"{key}\": {m}"))
+                    })?;
                     per_unit.push((term.live, price));
                 }
                 Some(CostModel { overhead, per_unit })
@@ -283,7 +291,7 @@ pub fn plan_tests(
             if !test.verdict.is_testable() {
                 return None;
             }
-            Some(plan_one(model, ems, df, test, plan, levels, &values, n, t))
+            Some(plan_one(model, ems, df, test, plan, &values, n, t))
         })
         .collect()
 }
@@ -295,7 +303,6 @@ fn plan_one(
     df: &[u64],
     test: &ErrorTerm,
     plan: &PlanningValues,
-    levels: &Levels,
     values: &[f64],
     n: f64,
     t: usize,
@@ -341,8 +348,8 @@ fn plan_one(
                 out.noncentrality = Some(lambda);
                 out.power = Some(critical.fixed_power(lambda.max(0.0)));
             }
-            out.min_detectable = min_noncentrality(&critical, plan.power)
-                .map(|lambda| (lambda * den / n).sqrt());
+            out.min_detectable =
+                min_noncentrality(&critical, plan.power).map(|lambda| (lambda * den / n).sqrt());
         }
         Kind::Random => {
             let own = ems.coefficient(t, t);

@@ -18,7 +18,7 @@ pub struct Spec {
     pub layout: Option<LayoutSpec>,
     #[serde(default)]
     pub factor: Vec<Spanned<FactorSpec>>,
-    pub prior: Option<BTreeMap<String, Spanned<f64>>>,
+    pub prior: Option<Spanned<BTreeMap<String, Spanned<f64>>>>,
     pub effect: Option<BTreeMap<String, Spanned<EffectSpec>>>,
     pub cost: Option<CostSpec>,
     pub search: Option<SearchSpec>,

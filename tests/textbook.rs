@@ -67,7 +67,11 @@ fn test_of(report: &CheckReport, term: &str) -> (Verdict, BTreeMap<String, f64>,
 fn expect_exact(report: &CheckReport, term: &str, over: &str, df: f64) {
     let (verdict, den, ddf) = test_of(report, term);
     assert_eq!(verdict, Verdict::Exact, "{term} should have an exact test");
-    assert_eq!(den.keys().collect::<Vec<_>>(), vec![over], "{term} tested over");
+    assert_eq!(
+        den.keys().collect::<Vec<_>>(),
+        vec![over],
+        "{term} tested over"
+    );
     assert_eq!(ddf, Some(df), "denominator df of {term}");
 }
 
@@ -94,15 +98,31 @@ levels = 4
 fn two_factor_mixed_model_both_conventions() {
     let r = run(MIXED_TWO_FACTOR, Convention::Restricted);
     expect_ems(&r, "farm", &[("residual", 1.0), ("farm", 6.0)]);
-    expect_ems(&r, "feed", &[("residual", 1.0), ("feed x farm", 2.0), ("feed", 8.0)]);
-    expect_ems(&r, "feed x farm", &[("residual", 1.0), ("feed x farm", 2.0)]);
+    expect_ems(
+        &r,
+        "feed",
+        &[("residual", 1.0), ("feed x farm", 2.0), ("feed", 8.0)],
+    );
+    expect_ems(
+        &r,
+        "feed x farm",
+        &[("residual", 1.0), ("feed x farm", 2.0)],
+    );
     expect_exact(&r, "farm", "residual", 12.0);
     expect_exact(&r, "feed", "feed x farm", 6.0);
     expect_exact(&r, "feed x farm", "residual", 12.0);
 
     let u = run(MIXED_TWO_FACTOR, Convention::Unrestricted);
-    expect_ems(&u, "farm", &[("residual", 1.0), ("feed x farm", 2.0), ("farm", 6.0)]);
-    expect_ems(&u, "feed", &[("residual", 1.0), ("feed x farm", 2.0), ("feed", 8.0)]);
+    expect_ems(
+        &u,
+        "farm",
+        &[("residual", 1.0), ("feed x farm", 2.0), ("farm", 6.0)],
+    );
+    expect_ems(
+        &u,
+        "feed",
+        &[("residual", 1.0), ("feed x farm", 2.0), ("feed", 8.0)],
+    );
     expect_exact(&u, "farm", "feed x farm", 6.0);
     expect_exact(&u, "feed", "feed x farm", 6.0);
 }
@@ -182,7 +202,11 @@ within = ["diet"]
     let r = run(text, Convention::Restricted);
     expect_exact(&r, "diet", "litter(diet)", 8.0);
     expect_exact(&r, "litter(diet)", "residual", 12.0);
-    expect_ems(&r, "diet", &[("residual", 1.0), ("litter(diet)", 2.0), ("diet", 6.0)]);
+    expect_ems(
+        &r,
+        "diet",
+        &[("residual", 1.0), ("litter(diet)", 2.0), ("diet", 6.0)],
+    );
 }
 
 /// Split-plot in random blocks: blocks random, whole-plot treatment A fixed, split-plot
@@ -211,7 +235,12 @@ levels = 2
     let r = run(text, Convention::Restricted);
     expect_exact(&r, "irrigation", "block x irrigation", 6.0);
     expect_exact(&r, "cultivar", "block x cultivar", 3.0);
-    expect_exact(&r, "irrigation x cultivar", "block x irrigation x cultivar", 6.0);
+    expect_exact(
+        &r,
+        "irrigation x cultivar",
+        "block x irrigation x cultivar",
+        6.0,
+    );
     // One observation per cell: the residual has no df, so the highest interaction
     // with blocks is not testable and the block effect is not either (no error).
     let (verdict, _, _) = test_of(&r, "block");
@@ -276,13 +305,23 @@ within = ["ration"]
     assert_eq!(pen.df, 0);
     assert_eq!(pen.test.as_ref().unwrap().verdict, Verdict::NotEstimable);
     // The pen variance is still in the ration's expected mean square.
-    expect_ems(&r, "ration", &[("residual", 1.0), ("pen(ration)", 8.0), ("ration", 8.0)]);
+    expect_ems(
+        &r,
+        "ration",
+        &[("residual", 1.0), ("pen(ration)", 8.0), ("ration", 8.0)],
+    );
     // The reason names the confounded variance, and the repair is a second pen.
     let ration = r.terms.iter().find(|t| t.label == "ration").unwrap();
     let test = ration.test.as_ref().unwrap();
-    assert!(test.reason.as_ref().unwrap().contains("pen"), "{:?}", test.reason);
     assert!(
-        test.repairs.iter().any(|x| x.change.contains("2 levels of pen") && !x.assumption),
+        test.reason.as_ref().unwrap().contains("pen"),
+        "{:?}",
+        test.reason
+    );
+    assert!(
+        test.repairs
+            .iter()
+            .any(|x| x.change.contains("2 levels of pen") && !x.assumption),
         "{:?}",
         test.repairs
     );
@@ -312,14 +351,22 @@ population = 10
     expect_ems(
         &r,
         "mowing",
-        &[("residual", 1.0), ("mowing x meadow", 0.6 * 3.0), ("mowing", 12.0)],
+        &[
+            ("residual", 1.0),
+            ("mowing x meadow", 0.6 * 3.0),
+            ("mowing", 12.0),
+        ],
     );
     // The meadow row: the mixed interaction drops out under the restricted model
     // (its fixed subscript is uncovered).
     expect_ems(&r, "meadow", &[("residual", 1.0), ("meadow", 6.0)]);
     // The fraction is exact, not rounded.
     let m = r.terms.iter().find(|t| t.label == "mowing").unwrap();
-    let c = m.ems.iter().find(|c| c.component == "mowing x meadow").unwrap();
+    let c = m
+        .ems
+        .iter()
+        .find(|c| c.component == "mowing x meadow")
+        .unwrap();
     assert_eq!((*c.coefficient.numer(), *c.coefficient.denom()), (9, 5));
 }
 
@@ -347,7 +394,11 @@ population = {pop}
         )
     };
     let r = run(&text(8), Convention::Restricted);
-    expect_ems(&r, "batch", &[("residual", 1.0), ("batch x kiln", 1.0), ("batch", 8.0)]);
+    expect_ems(
+        &r,
+        "batch",
+        &[("residual", 1.0), ("batch x kiln", 1.0), ("batch", 8.0)],
+    );
     let r = run(&text(4), Convention::Restricted);
     expect_ems(&r, "batch", &[("residual", 1.0), ("batch", 8.0)]);
     expect_exact(&r, "batch", "residual", 12.0);

@@ -77,14 +77,19 @@ const PLAN_HEADER: [&str; 9] = [
 
 /// Whether the report carries power figures (the layout had planning values).
 fn planned(report: &CheckReport) -> bool {
-    report
-        .terms
-        .iter()
-        .any(|t| t.test.as_ref().is_some_and(|x| x.min_detectable.is_some() || x.power.is_some()))
+    report.terms.iter().any(|t| {
+        t.test
+            .as_ref()
+            .is_some_and(|x| x.min_detectable.is_some() || x.power.is_some())
+    })
 }
 
 fn header(report: &CheckReport) -> &'static [&'static str] {
-    if planned(report) { &PLAN_HEADER } else { &HEADER }
+    if planned(report) {
+        &PLAN_HEADER
+    } else {
+        &HEADER
+    }
 }
 
 fn opt(x: Option<f64>) -> String {
@@ -98,7 +103,11 @@ fn rows(report: &CheckReport) -> Vec<Vec<String>> {
         .iter()
         .map(|t| {
             let (over, ddf, verdict) = match &t.test {
-                Some(test) => (tested_over(test), den_df(test), test.verdict.name().to_string()),
+                Some(test) => (
+                    tested_over(test),
+                    den_df(test),
+                    test.verdict.name().to_string(),
+                ),
                 None => ("-".into(), "-".into(), "-".into()),
             };
             let mut row = vec![
