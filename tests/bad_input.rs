@@ -637,6 +637,7 @@ fn random_mutations_never_panic_or_hang() {
             ),
         }
     }
+    eprintln!("mutations: {accepted} accepted, {rejected} rejected with one line");
     // Both outcomes occur, so the mutations neither all break nor all spare the file.
     assert!(
         accepted > 0 && rejected > 0,
