@@ -34,10 +34,10 @@ struct Run {
     stderr: String,
 }
 
-/// A scratch directory of this test binary's own, under cargo's per-target temp dir.
+/// A scratch directory for one test, under cargo's per-target temp dir; each test uses its
+/// own tag, and a later run reuses it.
 fn scratch(tag: &str) -> PathBuf {
-    let dir = Path::new(env!("CARGO_TARGET_TMPDIR"))
-        .join(format!("bad_input-{}-{tag}", std::process::id()));
+    let dir = Path::new(env!("CARGO_TARGET_TMPDIR")).join(format!("bad_input-{tag}"));
     std::fs::create_dir_all(&dir).unwrap();
     dir
 }
