@@ -98,7 +98,7 @@ pub fn error_term(model: &Model, ems: &Ems, df: &[u64], t: usize) -> ErrorTerm {
         in_target[c] = true;
     }
     let candidates: Vec<usize> = (0..model.terms.len())
-        .filter(|&v| v != t && df[v] > 0)
+        .filter(|&v| v != t && df[v] > 0 && in_target[v])
         .filter(|&v| ems.rows[v].iter().all(|(c, _)| in_target[*c]))
         .collect();
 

@@ -303,13 +303,28 @@ impl Layout {
             None | Some(ConventionSpec::Restricted) => Convention::Restricted,
             Some(ConventionSpec::Unrestricted) => Convention::Unrestricted,
         };
-        let mut structure =
-            Structure::new(factors, Vec::new(), convention).map_err(|m| Error::invalid(None, m))?;
+        let mut structure = Structure::new(factors, Vec::new(), convention).map_err(|m| {
+            // A cycle: point at the first `within` entry of a factor on it.
+            let line = spec
+                .factor
+                .iter()
+                .zip(&names)
+                .find(|(f, n)| m.contains(&format!("\"{n}\"")) && !f.get_ref().within.is_empty())
+                .and_then(|(f, _)| f.get_ref().within.first())
+                .map(|w| spec::line_of(text, w.span().start));
+            Error::invalid(line, m)
+        })?;
 
         for o in &layout_spec.omit {
             let line = at(o.span());
             let term = parse_term_label(&structure, o.get_ref())
                 .map_err(|m| Error::invalid(line, format!("omit: {m}")))?;
+            if term.is_residual() {
+                return Err(Error::invalid(
+                    line,
+                    "omit: \"residual\" is the variation within cells, not an interaction, and cannot be assumed absent",
+                ));
+            }
             if term.live.count_ones() < 2 {
                 return Err(Error::invalid(
                     line,

@@ -488,7 +488,7 @@ proptest! {
     fn check_json_has_the_contract_keys(d in layout_draw()) {
         let layout = build(&d);
         let convention = layout.structure.convention;
-        let report = check(&layout, convention).unwrap();
+        let report = check(&layout, convention, &no_planning()).unwrap();
         let text = emsplan::render::json(&report);
         let v: Value = serde_json::from_str(&text).expect("the JSON parses");
         let (model, ems, df) = ems_of(&layout);
@@ -600,4 +600,15 @@ fn the_draws_reach_every_case() {
     eprintln!(
         "verdicts {verdicts:?}; conventions differ in {differ}, finite {finite}, omitted {omitted}, nested {nested} of 500"
     );
+}
+
+/// No planning values: the check of structure alone.
+fn no_planning() -> emsplan::planning::PlanningValues {
+    emsplan::planning::PlanningValues {
+        alpha: 0.05,
+        power: 0.8,
+        priors: Default::default(),
+        effects: Default::default(),
+        cost: None,
+    }
 }
