@@ -16,3 +16,4 @@ pub mod render;
 pub mod repair;
 pub mod spec;
 pub mod term;
+pub mod variant;
