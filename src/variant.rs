@@ -149,7 +149,7 @@ mod tests {
 
     #[test]
     fn remap_shifts_higher_factors_down() {
-        assert_eq!(remap_mask(0b1011, 2), Some(0b011));
+        assert_eq!(remap_mask(0b1011, 2), Some(0b111));
         assert_eq!(remap_mask(0b1111, 2), None);
         assert_eq!(remap_mask(REPLICATE | 0b100, 1), Some(REPLICATE | 0b10));
     }
