@@ -86,12 +86,28 @@ impl Change {
                     before.levels.replicates
                 )
             }
-            Change::Within { factor, within } => format!(
-                "nest {} within {} (now within {})",
-                structure.factors[*factor].name,
-                names(*within),
-                names(structure.factors[*factor].within)
-            ),
+            Change::Within { factor, within } => {
+                let f = &structure.factors[*factor];
+                let added = within & !f.within;
+                let removed = f.within & !within;
+                if added != 0 {
+                    format!(
+                        "nest {} within {} as well (a separate {} for each level of {})",
+                        f.name,
+                        names(added),
+                        f.name,
+                        names(added)
+                    )
+                } else {
+                    format!(
+                        "cross {} with {} instead of nesting it there (only if every {} can take every level of {})",
+                        f.name,
+                        names(removed),
+                        f.name,
+                        names(removed)
+                    )
+                }
+            }
             Change::Omit { live } => format!(
                 "assume {} is absent",
                 crate::layout::term_of(structure, *live).short_label(structure)
