@@ -61,6 +61,20 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
+    /// Write a report that justifies the design: self-contained HTML, or Markdown.
+    Report {
+        /// The layout or problem file (TOML).
+        layout: PathBuf,
+        /// Write the report to this file (default: standard output). With --markdown the
+        /// figures are written beside it as NAME-*.svg.
+        #[arg(short = 'o', long = "output")]
+        output: Option<PathBuf>,
+        /// Markdown instead of HTML, for a supplement.
+        #[arg(long)]
+        markdown: bool,
+        #[command(flatten)]
+        planning: PlanningArgs,
+    },
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -212,6 +226,77 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 convention.map(Convention::from),
             )?;
             Ok(render::compare::render(&comparison, format))
+        }
+        Command::Report {
+            layout,
+            output,
+            markdown,
+            planning,
+        } => {
+            let side = load_side(&layout, &planning)?;
+            let report =
+                crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
+            write_report(&report, output.as_deref(), markdown)
+        }
+    }
+}
+
+/// The command line as typed, for the report's reproduction note.
+fn command_line() -> String {
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    let quoted: Vec<String> = args
+        .iter()
+        .map(|a| {
+            if a.chars()
+                .all(|c| c.is_alphanumeric() || "-_./=,:".contains(c))
+            {
+                a.clone()
+            } else {
+                format!("'{}'", a.replace('\'', "'\\''"))
+            }
+        })
+        .collect();
+    format!("emsplan {}", quoted.join(" "))
+}
+
+/// Writes the report where asked; returns what goes to stdout.
+fn write_report(
+    report: &crate::report::Report,
+    output: Option<&std::path::Path>,
+    markdown: bool,
+) -> Result<String, Error> {
+    let write = |path: &std::path::Path, text: &str| {
+        std::fs::write(path, text).map_err(|source| Error::Io {
+            path: path.display().to_string(),
+            source,
+        })
+    };
+    match (output, markdown) {
+        (None, false) => Ok(render::report::html(report)),
+        (None, true) => {
+            eprintln!(
+                "emsplan: figures are not written without -o FILE; the Markdown links to them"
+            );
+            Ok(render::report::markdown(report, "report-").0)
+        }
+        (Some(path), false) => {
+            write(path, &render::report::html(report))?;
+            eprintln!("emsplan: wrote {}", path.display());
+            Ok(String::new())
+        }
+        (Some(path), true) => {
+            let stem = path
+                .file_stem()
+                .map(|s| s.to_string_lossy().into_owned())
+                .unwrap_or_else(|| "report".into());
+            let (text, figures) = render::report::markdown(report, &format!("{stem}-"));
+            write(path, &text)?;
+            let dir = path.parent().unwrap_or_else(|| std::path::Path::new(""));
+            for (name, svg) in figures {
+                write(&dir.join(name), &svg)?;
+            }
+            eprintln!("emsplan: wrote {} and its figures", path.display());
+            Ok(String::new())
         }
     }
 }

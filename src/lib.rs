@@ -16,6 +16,7 @@ pub mod layout;
 pub mod planning;
 pub mod render;
 pub mod repair;
+pub mod report;
 pub mod spec;
 pub mod term;
 pub mod variant;

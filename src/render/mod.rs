@@ -3,6 +3,7 @@
 
 pub mod check;
 pub mod compare;
+pub mod report;
 
 use comfy_table::{Table, presets};
 
