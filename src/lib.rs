@@ -1,1 +1,3 @@
 //! emsplan: expected mean squares, error terms, power and cost for planned experiments.
+
+pub mod dist;
