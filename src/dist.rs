@@ -408,12 +408,15 @@ impl CentralF {
 ///
 /// Stopping rule: after term j the remainder R is bounded with the Poisson
 /// ratios p(k+1)/p(k) = μ/(k+1):
-/// - upward (j > μ): Σ_{k>j} p(k) ≤ p(j) (μ/(j+1)) / (1 − μ/(j+2));
-/// - downward (j < μ): Σ_{k<j} p(k) ≤ p(j) (j/μ) / (1 − (j−1)/μ);
+/// - upward (j > μ): Σ_{k>j} p(k) ≤ p(j) (μ/(j+1)) / (1 − μ/(j+2)) = p(j) μ (j+2) / ((j+1)(j+2−μ));
+/// - downward (j < μ): Σ_{k<j} p(k) ≤ p(j) (j/μ) / (1 − (j−1)/μ) = p(j) j / (μ − j + 1);
 ///
 /// and R ≤ S_j × that bound where S_k ≤ S_j beyond j (the summed tail shrinks
 /// that way), else R ≤ 1 × that bound. The sum stops when R ≤ 1e-16 × (sum so
-/// far), so the neglected part is below that relative error.
+/// far), so the neglected part is below that relative error. When the caller
+/// wants only the other tail (1 − sum), R ≤ 1e-16 × max(sum, 1 − sum) is enough,
+/// which saves most of the terms when the summed tail is negligible, as the
+/// lower tail at the critical value is when the power is near one.
 ///
 /// The summed tail and the T_j are carried divided by a common scale (they enter
 /// the recurrences linearly), so neither underflows when the tail is tiny.
@@ -429,6 +432,14 @@ struct NoncentralF {
     mode_probability: f64,
     /// The beta shape (a + m, b) at the mode.
     shape: BetaShape,
+}
+
+/// The tail a caller needs to full relative accuracy; the other is then good
+/// to about 1e-16 absolute.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Need {
+    Lower,
+    Upper,
 }
 
 impl NoncentralF {
@@ -450,13 +461,13 @@ impl NoncentralF {
     }
 
     /// Tails at 0 < x ≤ ∞.
-    fn tails(&self, x: f64) -> Tails {
+    fn tails(&self, x: f64, need: Need) -> Tails {
         let (y, w) = beta_point(x, self.df1, self.df2);
-        self.tails_at(y, w)
+        self.tails_at(y, w, need)
     }
 
     /// Tails at the beta point y, w = 1 − y.
-    fn tails_at(&self, y: f64, w: f64) -> Tails {
+    fn tails_at(&self, y: f64, w: f64, need: Need) -> Tails {
         if y <= 0.0 {
             return Tails {
                 lower: 0.0,
@@ -476,18 +487,17 @@ impl NoncentralF {
         };
         let (a, b, mu, m) = (self.a, self.b, self.mu, self.mode);
         let lower_series = start.lower_direct;
-
-        // The series in scaled units: S_m = 1, T_m = T_m / S_m.
-        let mut series = ScaledSum {
-            sum: 0.0,
-            slope: 0.0,
-            ln_unit: start.ln_direct,
+        let complement_only = match need {
+            Need::Lower => !lower_series,
+            Need::Upper => lower_series,
         };
+
+        // The series in scaled units, starting from S_m = 1.
+        let mut series = ScaledSum::new(start.ln_direct);
         let s_m = 1.0;
         let t_m = (start.ln_term - (a + m).ln() - start.ln_direct).exp();
         let p_m = self.mode_probability;
-        series.sum += p_m * s_m;
-        series.slope += p_m * (a + m) * t_m;
+        series.add(p_m, s_m, (a + m) * t_m);
 
         // Upward from the mode.
         let (mut s, mut t, mut p, mut j) = (s_m, t_m, p_m, m);
@@ -498,18 +508,20 @@ impl NoncentralF {
             } else {
                 s + t
             };
-            t *= y * (a + b + j) / (a + j + 1.0);
-            p *= mu / (j + 1.0);
+            // T_{j+1} = T_j y (a+b+j)/(a+j+1) and p(j+1) = p(j) μ/(j+1), one division.
+            let r = 1.0 / ((j + 1.0) * (a + j + 1.0));
+            t *= y * (a + b + j) * (j + 1.0) * r;
+            p *= mu * (a + j + 1.0) * r;
             j += 1.0;
-            series.sum += p * s;
-            series.slope += p * (a + j) * t;
-            let weight_rest = p * (mu / (j + 1.0)) / (1.0 - mu / (j + 2.0));
-            let done = if lower_series {
-                weight_rest * s <= SERIES_EPS * series.sum
+            series.add(p, s, (a + j) * t);
+            // R ≤ p μ (j+2) / ((j+1)(j+2−μ)) × (S_j or 1), compared without dividing.
+            let weight = p * mu * (j + 2.0);
+            let rest = if lower_series {
+                weight * s
             } else {
-                weight_rest <= SERIES_EPS * series.sum * series.unit()
+                series.of_one(weight)
             };
-            if done {
+            if rest <= series.allowed(complement_only) * ((j + 1.0) * (j + 2.0 - mu)) {
                 converged = true;
                 break;
             }
@@ -519,30 +531,32 @@ impl NoncentralF {
             return Tails::NAN;
         }
 
-        // Downward from the mode; the start values are in the current scale.
+        // Downward from the mode; the start values in the current scale.
         let back = (start.ln_direct - series.ln_unit).exp();
         let (mut s, mut t, mut p, mut j) = (s_m * back, t_m * back, p_m, m);
         while j > 0.0 {
-            t *= (a + j) / (y * (a + b + j - 1.0));
+            // T_{j−1} = T_j (a+j)/(y (a+b+j−1)) and p(j−1) = p(j) j/μ, one division.
+            let r = 1.0 / (y * (a + b + j - 1.0) * mu);
+            t *= (a + j) * mu * r;
             s = if lower_series {
                 s + t
             } else {
                 (s - t).max(0.0)
             };
-            p *= j / mu;
+            p *= j * y * (a + b + j - 1.0) * r;
             j -= 1.0;
-            series.sum += p * s;
-            series.slope += p * (a + j) * t;
+            series.add(p, s, (a + j) * t);
             if j == 0.0 {
                 break;
             }
-            let weight_rest = p * (j / mu) / (1.0 - (j - 1.0) / mu);
-            let done = if lower_series {
-                weight_rest <= SERIES_EPS * series.sum * series.unit()
+            // R ≤ p j / (μ − j + 1) × (1 or S_j), compared without dividing.
+            let weight = p * j;
+            let rest = if lower_series {
+                series.of_one(weight)
             } else {
-                weight_rest * s <= SERIES_EPS * series.sum
+                weight * s
             };
-            if done {
+            if rest <= series.allowed(complement_only) * (mu - j + 1.0) {
                 break;
             }
             series.rescale(&mut s, &mut t);
@@ -571,14 +585,42 @@ impl NoncentralF {
 
 /// A running sum in units of e^{ln_unit}, rescaled as its terms grow.
 struct ScaledSum {
+    /// Σ p_j S_j and Σ p_j (a + j) T_j, in units.
     sum: f64,
     slope: f64,
     ln_unit: f64,
+    /// The number 1 in units, e^{−ln_unit} (possibly +∞).
+    one: f64,
 }
 
 impl ScaledSum {
-    fn unit(&self) -> f64 {
-        self.ln_unit.exp()
+    fn new(ln_unit: f64) -> Self {
+        ScaledSum {
+            sum: 0.0,
+            slope: 0.0,
+            ln_unit,
+            one: (-ln_unit).exp(),
+        }
+    }
+
+    fn add(&mut self, p: f64, s: f64, term: f64) {
+        self.sum += p * s;
+        self.slope += p * term;
+    }
+
+    /// A Poisson weight times 1, in units.
+    fn of_one(&self, weight: f64) -> f64 {
+        if weight > 0.0 { weight * self.one } else { 0.0 }
+    }
+
+    /// The remainder allowed: relative to the sum, or, when only the
+    /// complement 1 − sum is wanted, relative to the larger of the two.
+    fn allowed(&self, complement_only: bool) -> f64 {
+        if complement_only {
+            SERIES_EPS * self.sum.max(self.one - self.sum)
+        } else {
+            SERIES_EPS * self.sum
+        }
     }
 
     fn value(&self, scaled: f64) -> f64 {
@@ -589,7 +631,7 @@ impl ScaledSum {
         }
     }
 
-    /// Keep the current term s (and t ≤ s·(b + 1)) far from overflow.
+    /// Keep the current term s (and t ≤ s (b + 1)) far from overflow.
     fn rescale(&mut self, s: &mut f64, t: &mut f64) {
         if *s > 1e100 {
             let f = 1.0 / *s;
@@ -598,6 +640,7 @@ impl ScaledSum {
             self.sum *= f;
             self.slope *= f;
             self.ln_unit -= f.ln();
+            self.one *= f;
         }
     }
 }
@@ -805,13 +848,13 @@ pub fn f_upper_quantile(q: f64, df1: f64, df2: f64) -> f64 {
 /// The Poisson mixture of `NoncentralF`. NaN for a NaN `x`, invalid degrees of
 /// freedom, or `nc` negative or not finite.
 pub fn noncentral_f_cdf(x: f64, df1: f64, df2: f64, nc: f64) -> f64 {
-    noncentral_tails(x, df1, df2, nc).lower
+    noncentral_tails(x, df1, df2, nc, Need::Lower).lower
 }
 
 /// Upper tail 1 − CDF of the noncentral F distribution, accurate in the far tail.
 /// Arguments as for [`noncentral_f_cdf`].
 pub fn noncentral_f_sf(x: f64, df1: f64, df2: f64, nc: f64) -> f64 {
-    noncentral_tails(x, df1, df2, nc).upper
+    noncentral_tails(x, df1, df2, nc, Need::Upper).upper
 }
 
 /// Quantile of the noncentral F distribution: the x with
@@ -828,7 +871,7 @@ pub fn noncentral_f_quantile(p: f64, df1: f64, df2: f64, nc: f64) -> f64 {
     quantile_with(p, Tail::Lower, df1, df2, Some(nc))
 }
 
-fn noncentral_tails(x: f64, df1: f64, df2: f64, nc: f64) -> Tails {
+fn noncentral_tails(x: f64, df1: f64, df2: f64, nc: f64, need: Need) -> Tails {
     if x.is_nan() || !valid_df(df1) || !valid_df(df2) || !valid_nc(nc) {
         return Tails::NAN;
     }
@@ -839,7 +882,7 @@ fn noncentral_tails(x: f64, df1: f64, df2: f64, nc: f64) -> Tails {
             slope: 0.0,
         };
     }
-    NoncentralF::new(df1, df2, nc).tails(x)
+    NoncentralF::new(df1, df2, nc).tails(x, need)
 }
 
 fn quantile_with(p: f64, tail: Tail, df1: f64, df2: f64, nc: Option<f64>) -> f64 {
@@ -862,7 +905,11 @@ fn quantile_with(p: f64, tail: Tail, df1: f64, df2: f64, nc: Option<f64>) -> f64
             let scale = (df1 + nc) / df1;
             let nu = (df1 + nc) * (df1 + nc) / (df1 + 2.0 * nc);
             let start = scale * paulson_start(start_deviate(target, tail), nu, df2);
-            solve_quantile(target, tail, start, |x| dist.tails(x))
+            let need = match tail {
+                Tail::Lower => Need::Lower,
+                Tail::Upper => Need::Upper,
+            };
+            solve_quantile(target, tail, start, |x| dist.tails(x, need))
         }
     }
 }
@@ -891,23 +938,67 @@ pub fn random_power(alpha: f64, df1: f64, df2: f64, ratio: f64) -> f64 {
 /// The upper-`alpha` point of F(df1, df2), computed once, so that a caller
 /// evaluating many noncentralities for the same (alpha, df1, df2) pays for the
 /// quantile only once.
+///
+/// It also keeps the start of the power series at the critical value: with
+/// a = df1/2, b = df2/2, y = df1 F_crit/(df1 F_crit + df2), the upper tails
+/// Q_j = 1 − I_y(a + j, b) satisfy Q₀ = alpha and Q_{j+1} = Q_j + T_j, so
+///   power = Σ_{j≥0} p(j; λ/2) Q_j
+/// can be summed upward from j = 0 by additions only (no cancellation, and no
+/// new incomplete beta per noncentrality), stopping past the Poisson mode by the
+/// upward remainder bound of `NoncentralF`. That costs about λ/2 + 8√(λ/2)
+/// terms, so for λ/2 above [`CriticalValue::SERIES_FROM_ZERO_UP_TO`] the
+/// general mode-centred sum is used instead.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct CriticalValue {
     alpha: f64,
     df1: f64,
     df2: f64,
     value: f64,
+    /// Q₀ = 1 − I_y(a, b) and T₀ = y^a (1 − y)^b / (a B(a, b)) at the critical
+    /// value, when both are normal numbers.
+    start: Option<SeriesStart>,
+}
+
+#[derive(Clone, Copy, Debug, PartialEq)]
+struct SeriesStart {
+    a: f64,
+    b: f64,
+    y: f64,
+    upper: f64,
+    term: f64,
 }
 
 impl CriticalValue {
+    /// Largest Poisson mean λ/2 for which [`CriticalValue::fixed_power`] sums
+    /// upward from j = 0; beyond it the mode-centred sum is cheaper.
+    pub const SERIES_FROM_ZERO_UP_TO: f64 = 100.0;
+
     /// The critical value F_crit with P(F(df1, df2) > F_crit) = alpha. With
     /// invalid arguments the value is NaN, and so is every power from it.
     pub fn new(alpha: f64, df1: f64, df2: f64) -> Self {
+        let value = f_upper_quantile(alpha, df1, df2);
+        let start = if value.is_finite() && value > 0.0 {
+            let (a, b) = (0.5 * df1, 0.5 * df2);
+            let (y, w) = beta_point(value, df1, df2);
+            BetaShape::new(a, b)
+                .tail(y, w)
+                .map(|tail| SeriesStart {
+                    a,
+                    b,
+                    y,
+                    upper: tail.upper(),
+                    term: tail.ln_term.exp() / a,
+                })
+                .filter(|s| s.upper.is_normal() && s.term.is_normal() && s.upper < 1.0)
+        } else {
+            None
+        };
         CriticalValue {
             alpha,
             df1,
             df2,
-            value: f_upper_quantile(alpha, df1, df2),
+            value,
+            start,
         }
     }
 
@@ -923,10 +1014,15 @@ impl CriticalValue {
 
     /// Power of the test of a fixed term with noncentrality `nc`: see [`fixed_power`].
     pub fn fixed_power(&self, nc: f64) -> f64 {
-        if self.value.is_nan() {
+        if self.value.is_nan() || !valid_nc(nc) {
             return f64::NAN;
         }
-        noncentral_f_sf(self.value, self.df1, self.df2, nc)
+        match self.start {
+            Some(start) if 0.5 * nc <= Self::SERIES_FROM_ZERO_UP_TO => {
+                start.upper_mixture(0.5 * nc)
+            }
+            _ => noncentral_f_sf(self.value, self.df1, self.df2, nc),
+        }
     }
 
     /// Power of the test of a random term with ratio E(MS_den)/E(MS_term): see
@@ -944,5 +1040,29 @@ impl CriticalValue {
             return 1.0;
         }
         f_sf(self.value * ratio, self.df1, self.df2)
+    }
+}
+
+impl SeriesStart {
+    /// Σ_j p(j; μ) Q_j summed upward from j = 0, for 0 ≤ μ ≤ 100 (so that
+    /// p(0; μ) = e^{−μ} is a normal number).
+    fn upper_mixture(&self, mu: f64) -> f64 {
+        let (a, b, y) = (self.a, self.b, self.y);
+        let (mut q, mut t, mut p, mut j) = (self.upper, self.term, (-mu).exp(), 0.0);
+        let mut sum = p * q;
+        for _ in 0..MAX_MIXTURE_TERMS {
+            q = (q + t).min(1.0);
+            let r = 1.0 / ((j + 1.0) * (a + j + 1.0));
+            t *= y * (a + b + j) * (j + 1.0) * r;
+            p *= mu * (a + j + 1.0) * r;
+            j += 1.0;
+            sum += p * q;
+            // Past the mode, R ≤ p μ (j+2) / ((j+1)(j+2−μ)) × 1.
+            if j + 2.0 > mu && p * mu * (j + 2.0) <= SERIES_EPS * sum * ((j + 1.0) * (j + 2.0 - mu))
+            {
+                return sum.min(1.0);
+            }
+        }
+        f64::NAN
     }
 }
