@@ -65,7 +65,8 @@ const MAX_ROOT_ITERATIONS: usize = 200;
 /// δ(z) = 1/(12z) − 1/(360z³) + 1/(1260z⁵) − 1/(1680z⁷) + 1/(1188z⁹)
 ///        − 691/(360360z¹¹) + 1/(156z¹³),
 /// whose first neglected term is below 4e-17 at z = 10; below 10 by subtraction
-/// from `statrs`'s ln Γ, where every quantity is small.
+/// from `statrs`'s ln Γ, whose absolute error (up to about 2e-14 there) becomes the
+/// relative error of the beta and Poisson prefactors.
 fn stirling_remainder(z: f64) -> f64 {
     if z >= 10.0 {
         let r = 1.0 / z;
@@ -510,22 +511,22 @@ impl NoncentralF {
             };
             // T_{j+1} = T_j y (a+b+j)/(a+j+1) and p(j+1) = p(j) μ/(j+1), one division.
             let r = 1.0 / ((j + 1.0) * (a + j + 1.0));
-            t *= y * (a + b + j) * (j + 1.0) * r;
+            let growth = y * (a + b + j) * (j + 1.0) * r;
+            series.keep_finite(&mut s, &mut t, growth);
+            t *= growth;
             p *= mu * (a + j + 1.0) * r;
             j += 1.0;
             series.add(p, s, (a + j) * t);
             // R ≤ p μ (j+2) / ((j+1)(j+2−μ)) × (S_j or 1), compared without dividing.
-            let weight = p * mu * (j + 2.0);
-            let rest = if lower_series {
-                weight * s
-            } else {
-                series.of_one(weight)
+            let bound = Remainder {
+                weight: p * mu * (j + 2.0),
+                denominator: (j + 1.0) * (j + 2.0 - mu),
+                times_one: !lower_series,
             };
-            if rest <= series.allowed(complement_only) * ((j + 1.0) * (j + 2.0 - mu)) {
+            if series.negligible(bound, s, complement_only) {
                 converged = true;
                 break;
             }
-            series.rescale(&mut s, &mut t);
         }
         if !converged {
             return Tails::NAN;
@@ -537,7 +538,9 @@ impl NoncentralF {
         while j > 0.0 {
             // T_{j−1} = T_j (a+j)/(y (a+b+j−1)) and p(j−1) = p(j) j/μ, one division.
             let r = 1.0 / (y * (a + b + j - 1.0) * mu);
-            t *= (a + j) * mu * r;
+            let growth = (a + j) * mu * r;
+            series.keep_finite(&mut s, &mut t, growth);
+            t *= growth;
             s = if lower_series {
                 s + t
             } else {
@@ -550,21 +553,21 @@ impl NoncentralF {
                 break;
             }
             // R ≤ p j / (μ − j + 1) × (1 or S_j), compared without dividing.
-            let weight = p * j;
-            let rest = if lower_series {
-                series.of_one(weight)
-            } else {
-                weight * s
+            let bound = Remainder {
+                weight: p * j,
+                denominator: mu - j + 1.0,
+                times_one: lower_series,
             };
-            if rest <= series.allowed(complement_only) * (mu - j + 1.0) {
+            if series.negligible(bound, s, complement_only) {
                 break;
             }
-            series.rescale(&mut s, &mut t);
         }
 
         let small = series.value(series.sum).min(1.0);
+        // The slope only steers the quantile solver, which copes with a
+        // non-finite one.
         let slope = series.value(series.slope);
-        if !(small.is_finite() && slope.is_finite()) {
+        if !small.is_finite() {
             return Tails::NAN;
         }
         if lower_series {
@@ -583,14 +586,23 @@ impl NoncentralF {
     }
 }
 
+/// A bound on the remainder of the mixture: weight / denominator × (1 or S_j),
+/// where the weight is in real units and S_j in the running sum's units.
+#[derive(Clone, Copy, Debug)]
+struct Remainder {
+    weight: f64,
+    denominator: f64,
+    times_one: bool,
+}
+
 /// A running sum in units of e^{ln_unit}, rescaled as its terms grow.
 struct ScaledSum {
     /// Σ p_j S_j and Σ p_j (a + j) T_j, in units.
     sum: f64,
     slope: f64,
     ln_unit: f64,
-    /// The number 1 in units, e^{−ln_unit} (possibly +∞).
-    one: f64,
+    /// The unit e^{ln_unit} (possibly 0 when the summed tail is far below 1e-300).
+    unit: f64,
 }
 
 impl ScaledSum {
@@ -599,7 +611,7 @@ impl ScaledSum {
             sum: 0.0,
             slope: 0.0,
             ln_unit,
-            one: (-ln_unit).exp(),
+            unit: ln_unit.exp(),
         }
     }
 
@@ -608,18 +620,26 @@ impl ScaledSum {
         self.slope += p * term;
     }
 
-    /// A Poisson weight times 1, in units.
-    fn of_one(&self, weight: f64) -> f64 {
-        if weight > 0.0 { weight * self.one } else { 0.0 }
-    }
-
-    /// The remainder allowed: relative to the sum, or, when only the
-    /// complement 1 − sum is wanted, relative to the larger of the two.
-    fn allowed(&self, complement_only: bool) -> f64 {
+    /// Whether the remainder is below 1e-16 of the sum, or, when only the
+    /// complement 1 − sum is wanted, below 1e-16 of the larger of the two.
+    fn negligible(&self, rest: Remainder, s: f64, complement_only: bool) -> bool {
+        let Remainder {
+            weight,
+            denominator,
+            times_one,
+        } = rest;
         if complement_only {
-            SERIES_EPS * self.sum.max(self.one - self.sum)
+            let total = self.sum * self.unit;
+            let rest = if times_one {
+                weight
+            } else {
+                weight * s * self.unit
+            };
+            rest <= SERIES_EPS * total.max(1.0 - total) * denominator
+        } else if times_one {
+            weight <= SERIES_EPS * self.sum * self.unit * denominator
         } else {
-            SERIES_EPS * self.sum
+            weight * s <= SERIES_EPS * self.sum * denominator
         }
     }
 
@@ -631,16 +651,19 @@ impl ScaledSum {
         }
     }
 
-    /// Keep the current term s (and t ≤ s (b + 1)) far from overflow.
-    fn rescale(&mut self, s: &mut f64, t: &mut f64) {
-        if *s > 1e100 {
-            let f = 1.0 / *s;
-            *s = 1.0;
+    /// Before T is multiplied by `growth` (which reaches 1/y going down when
+    /// y is tiny), move to a unit in which s and T·growth are at most 1, if
+    /// either exceeds 1e100, so the next term cannot overflow.
+    fn keep_finite(&mut self, s: &mut f64, t: &mut f64, growth: f64) {
+        let largest = s.max(*t * growth);
+        if largest > 1e100 {
+            let f = 1.0 / largest;
+            *s *= f;
             *t *= f;
             self.sum *= f;
             self.slope *= f;
             self.ln_unit -= f.ln();
-            self.one *= f;
+            self.unit = self.ln_unit.exp();
         }
     }
 }
@@ -704,7 +727,11 @@ fn solve_quantile(target: f64, tail: Tail, x_start: f64, tails: impl Fn(f64) -> 
             lo = s;
         }
         let tolerance = 1e-14 * s.abs().max(1.0);
-        let newton = s - h * value / slope;
+        let newton = if slope.is_finite() && slope > 0.0 {
+            s - h * value / slope
+        } else {
+            f64::NAN
+        };
         if newton.is_finite() && (newton - s).abs() <= tolerance {
             return newton.exp();
         }
@@ -898,9 +925,7 @@ fn quantile_with(p: f64, tail: Tail, df1: f64, df2: f64, nc: Option<f64>) -> f64
         };
     }
     match nc {
-        None => central_quantile(target, tail, df1, df2),
-        Some(nc) if nc == 0.0 => central_quantile(target, tail, df1, df2),
-        Some(nc) => {
+        Some(nc) if nc > 0.0 => {
             let dist = NoncentralF::new(df1, df2, nc);
             let scale = (df1 + nc) / df1;
             let nu = (df1 + nc) * (df1 + nc) / (df1 + 2.0 * nc);
@@ -911,6 +936,7 @@ fn quantile_with(p: f64, tail: Tail, df1: f64, df2: f64, nc: Option<f64>) -> f64
             };
             solve_quantile(target, tail, start, |x| dist.tails(x, need))
         }
+        _ => central_quantile(target, tail, df1, df2),
     }
 }
 
@@ -1064,5 +1090,179 @@ impl SeriesStart {
             }
         }
         f64::NAN
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Every public function on arguments it must refuse: NaN, never a panic.
+    #[test]
+    fn bad_arguments_give_nan() {
+        let bad_df = [f64::NAN, 0.0, -1.0, f64::INFINITY, f64::NEG_INFINITY];
+        for df in bad_df {
+            assert!(f_cdf(1.0, df, 5.0).is_nan(), "df1 {df}");
+            assert!(f_cdf(1.0, 5.0, df).is_nan(), "df2 {df}");
+            assert!(f_sf(1.0, df, 5.0).is_nan());
+            assert!(f_sf(1.0, 5.0, df).is_nan());
+            assert!(f_quantile(0.5, df, 5.0).is_nan());
+            assert!(f_upper_quantile(0.05, 5.0, df).is_nan());
+            assert!(noncentral_f_cdf(1.0, df, 5.0, 2.0).is_nan());
+            assert!(noncentral_f_sf(1.0, 5.0, df, 2.0).is_nan());
+            assert!(noncentral_f_quantile(0.5, df, 5.0, 2.0).is_nan());
+            assert!(fixed_power(0.05, df, 5.0, 2.0).is_nan());
+            assert!(fixed_power(0.05, 5.0, df, 2.0).is_nan());
+            assert!(random_power(0.05, df, 5.0, 0.5).is_nan());
+            assert!(CriticalValue::new(0.05, 5.0, df).value().is_nan());
+            assert!(CriticalValue::new(0.05, df, 5.0).fixed_power(2.0).is_nan());
+        }
+        for nc in [f64::NAN, -1e-300, -1.0, f64::INFINITY, f64::NEG_INFINITY] {
+            assert!(noncentral_f_cdf(1.0, 3.0, 5.0, nc).is_nan(), "nc {nc}");
+            assert!(noncentral_f_sf(1.0, 3.0, 5.0, nc).is_nan());
+            assert!(noncentral_f_quantile(0.5, 3.0, 5.0, nc).is_nan());
+            assert!(fixed_power(0.05, 3.0, 5.0, nc).is_nan());
+            assert!(CriticalValue::new(0.05, 3.0, 5.0).fixed_power(nc).is_nan());
+        }
+        for p in [f64::NAN, -0.1, 1.1, f64::INFINITY, f64::NEG_INFINITY] {
+            assert!(f_quantile(p, 3.0, 5.0).is_nan(), "p {p}");
+            assert!(f_upper_quantile(p, 3.0, 5.0).is_nan());
+            assert!(noncentral_f_quantile(p, 3.0, 5.0, 2.0).is_nan());
+            assert!(fixed_power(p, 3.0, 5.0, 2.0).is_nan());
+            assert!(random_power(p, 3.0, 5.0, 0.5).is_nan());
+        }
+        for ratio in [f64::NAN, -0.5, f64::NEG_INFINITY] {
+            assert!(
+                random_power(0.05, 3.0, 5.0, ratio).is_nan(),
+                "ratio {ratio}"
+            );
+        }
+        assert!(f_cdf(f64::NAN, 3.0, 5.0).is_nan());
+        assert!(noncentral_f_sf(f64::NAN, 3.0, 5.0, 1.0).is_nan());
+    }
+
+    /// The edges of the domain, where the answer is known exactly.
+    #[test]
+    fn domain_edges() {
+        for x in [0.0, -1.0, f64::NEG_INFINITY] {
+            assert_eq!(f_cdf(x, 3.0, 5.0), 0.0);
+            assert_eq!(f_sf(x, 3.0, 5.0), 1.0);
+            assert_eq!(noncentral_f_cdf(x, 3.0, 5.0, 4.0), 0.0);
+            assert_eq!(noncentral_f_sf(x, 3.0, 5.0, 4.0), 1.0);
+        }
+        assert_eq!(f_cdf(f64::INFINITY, 3.0, 5.0), 1.0);
+        assert_eq!(f_sf(f64::INFINITY, 3.0, 5.0), 0.0);
+        assert_eq!(noncentral_f_cdf(f64::INFINITY, 3.0, 5.0, 4.0), 1.0);
+        assert_eq!(noncentral_f_sf(f64::INFINITY, 3.0, 5.0, 4.0), 0.0);
+        assert_eq!(f_quantile(0.0, 3.0, 5.0), 0.0);
+        assert_eq!(f_quantile(1.0, 3.0, 5.0), f64::INFINITY);
+        assert_eq!(f_upper_quantile(1.0, 3.0, 5.0), 0.0);
+        assert_eq!(f_upper_quantile(0.0, 3.0, 5.0), f64::INFINITY);
+        assert_eq!(noncentral_f_quantile(0.0, 3.0, 5.0, 4.0), 0.0);
+        assert_eq!(noncentral_f_quantile(1.0, 3.0, 5.0, 4.0), f64::INFINITY);
+        // alpha = 0 never rejects, alpha = 1 always does.
+        assert_eq!(fixed_power(0.0, 3.0, 5.0, 4.0), 0.0);
+        assert_eq!(fixed_power(1.0, 3.0, 5.0, 4.0), 1.0);
+        assert_eq!(random_power(0.0, 3.0, 5.0, 0.0), 0.0);
+        assert_eq!(random_power(1.0, 3.0, 5.0, f64::INFINITY), 1.0);
+        // ratio 0: the term's mean square dwarfs the denominator's.
+        assert_eq!(random_power(0.05, 3.0, 5.0, 0.0), 1.0);
+        assert_eq!(random_power(0.05, 3.0, 5.0, f64::INFINITY), 0.0);
+    }
+
+    /// Valid but extreme arguments: a probability in [0, 1] (or a documented
+    /// NaN), quickly; the loops are bounded.
+    #[test]
+    fn extreme_arguments_stay_in_range() {
+        let in_unit = |v: f64| (0.0..=1.0).contains(&v);
+        for x in [1e-300, 1e-100, 1e-10, 1e10, 1e100, 1e300] {
+            for (df1, df2) in [(1e-3, 5.0), (5.0, 1e-3), (3.0, 10.0), (1e6, 1e6)] {
+                for nc in [0.0, 5.0, 500.0, 1e5] {
+                    let lower = noncentral_f_cdf(x, df1, df2, nc);
+                    let upper = noncentral_f_sf(x, df1, df2, nc);
+                    assert!(in_unit(lower) && in_unit(upper), "{x} {df1} {df2} {nc}");
+                    assert!((lower + upper - 1.0).abs() < 1e-12, "{x} {df1} {df2} {nc}");
+                }
+            }
+        }
+        for p in [1e-300, 1e-12, 0.5, 1.0 - 1e-12] {
+            for (df1, df2) in [(1e-3, 5.0), (5.0, 1e-3), (1.0, 1e6), (1e6, 1.0)] {
+                let x = f_quantile(p, df1, df2);
+                assert!(x >= 0.0, "{p} {df1} {df2} {x}");
+                let x = noncentral_f_quantile(p, df1, df2, 50.0);
+                assert!(x >= 0.0, "{p} {df1} {df2} {x}");
+            }
+        }
+        let power = fixed_power(0.05, 3.0, 20.0, 1e8);
+        assert_eq!(power, 1.0);
+    }
+
+    /// Stirling's remainder against mpmath 1.4.1 (`loggamma(z) − (z − ½) ln z +
+    /// z − ½ ln 2π` at 30 digits): the series (z ≥ 10) to its first neglected
+    /// term (4e-17 at z = 10), the ln Γ form
+    /// (z < 10) to the 3e-14 that `statrs`'s ln Γ allows.
+    #[test]
+    #[allow(clippy::excessive_precision)] // mpmath's digits, as printed
+    fn stirling_remainder_matches_mpmath() {
+        let cases = [
+            (0.5, 0.153_426_409_720_027_345_29, 3e-14),
+            (1.0, 0.081_061_466_795_327_258_22, 3e-14),
+            (2.5, 0.033_162_873_519_936_287_485, 3e-14),
+            (3.715, 0.022_378_471_957_204_872_099, 3e-14),
+            (9.5, 0.008_768_700_134_139_385_463, 3e-14),
+            (10.0, 0.008_330_563_433_362_871_256_5, 5e-17),
+            (12.5, 0.006_665_247_032_707_682_442_4, 5e-17),
+            (20.0, 0.004_166_319_691_996_922_457_5, 5e-17),
+            (50.0, 0.001_666_644_446_983_365_509_9, 5e-17),
+            (500_000.0, 1.666_666_666_666_444_441_7e-7, 1e-21),
+        ];
+        for (z, want, tolerance) in cases {
+            let got = stirling_remainder(z);
+            assert!(
+                (got - want).abs() <= tolerance,
+                "δ({z}) = {got:e}, mpmath {want:e}"
+            );
+        }
+    }
+
+    /// ln(1 + u) − u against the library ln_1p where that is accurate (|u| not small).
+    #[test]
+    fn ln1p_minus_matches_ln_1p() {
+        for u in [-0.9, -0.5, -0.3, -0.01, 0.01, 0.3, 0.5, 2.0, 1e3] {
+            let want = f64::ln_1p(u) - u;
+            let got = ln1p_minus(u, 1.0 + u);
+            assert!((got - want).abs() <= 1e-15 * want.abs().max(1e-3), "{u}");
+        }
+        // Small u: ln(1 + u) − u = −u²/2 + u³/3 − …
+        let u = 1e-6;
+        let want = -u * u / 2.0 + u * u * u / 3.0 - u * u * u * u / 4.0;
+        assert!((ln1p_minus(u, 1.0 + u) - want).abs() <= 1e-15 * want.abs());
+    }
+
+    /// Poisson probabilities: e^{−μ} μ^k / k! directly where that is exact enough.
+    #[test]
+    fn poisson_probability_matches_direct_formula() {
+        for (k, mu) in [
+            (0.0, 3.0),
+            (1.0, 0.5),
+            (5.0, 5.0),
+            (12.0, 7.5),
+            (30.0, 40.0),
+        ] {
+            let direct = (-mu + k * f64::ln(mu) - ln_gamma(k + 1.0)).exp();
+            let got = poisson_probability(k, mu);
+            assert!((got - direct).abs() <= 1e-13 * direct, "{k} {mu}");
+        }
+        assert_eq!(poisson_probability(0.0, 0.0), 1.0);
+        assert_eq!(poisson_probability(3.0, 0.0), 0.0);
+    }
+
+    /// The continued fraction and the mixture report non-convergence as NaN,
+    /// not as a wrong number: both shape parameters at 1e300 cannot converge
+    /// within the iteration bound.
+    #[test]
+    fn non_convergence_is_nan() {
+        assert!(f_cdf(1.0, 1e300, 1e300).is_nan());
+        assert!(continued_fraction(1e300, 1e300, 0.5, 0.5).is_none());
     }
 }

@@ -145,7 +145,9 @@ impl Group {
         let abs = (got - want).abs();
         let rel = if want > 0.0 { abs / want } else { abs };
         self.count += 1;
-        if !(abs <= ABS_TOL && (want >= TAIL || rel <= REL_TOL_TAIL)) {
+        // A NaN fails too.
+        let within = abs <= ABS_TOL && (want >= TAIL || rel <= REL_TOL_TAIL);
+        if !within {
             self.failures.push(format!(
                 "{case}: got {got:e}, scipy {want:e}, abs {abs:e}, rel {rel:e}"
             ));
@@ -164,7 +166,9 @@ impl Group {
         let abs = (got - want).abs();
         let rel = abs / want.abs().max(1.0);
         self.count += 1;
-        if !(rel <= QUANTILE_TOL) {
+        // A NaN fails too.
+        let within = rel <= QUANTILE_TOL;
+        if !within {
             self.failures
                 .push(format!("{case}: got {got:e}, scipy {want:e}, rel {rel:e}"));
         }
