@@ -7,7 +7,8 @@
 //! and noncentrality 0 … 2000.
 //!
 //! Tolerances: probabilities to 1e-8 absolute, and those below 1e-4 also to 1e-6
-//! relative; quantiles to 1e-8 relative (absolute below 1).
+//! relative (the far-tail cases reach 1e-11); quantiles to 1e-8 relative
+//! (absolute below 1).
 
 use emsplan::dist::{
     CriticalValue, f_cdf, f_quantile, f_sf, f_upper_quantile, fixed_power, noncentral_f_cdf,
@@ -28,6 +29,7 @@ struct Reference {
     central_quantile: Vec<CentralQuantile>,
     central_upper_quantile: Vec<CentralUpperQuantile>,
     noncentral: Vec<Noncentral>,
+    noncentral_tail: Vec<NoncentralTail>,
     noncentral_quantile: Vec<NoncentralQuantile>,
     power: Vec<Power>,
     random_power: Vec<RandomPower>,
@@ -74,6 +76,16 @@ struct Noncentral {
     nc: f64,
     cdf: f64,
     sf: f64,
+}
+
+#[derive(Deserialize)]
+struct NoncentralTail {
+    x: f64,
+    df1: f64,
+    df2: f64,
+    nc: f64,
+    tail: String,
+    value: f64,
 }
 
 #[derive(Deserialize)]
@@ -253,6 +265,25 @@ fn noncentral_cdf_and_sf_match_scipy() {
             noncentral_f_sf(c.x, c.df1, c.df2, c.nc),
             c.sf,
         );
+    }
+    group.finish();
+}
+
+// scipy.stats.ncf.sf at ncf.isf(q) and ncf.cdf at ncf.ppf(q), q = 1e-7 and 1e-11.
+#[test]
+fn noncentral_far_tails_match_scipy() {
+    let mut group = Group::new("noncentral far tails");
+    for c in reference().noncentral_tail {
+        let case = format!(
+            "F'({}, {}, {}) {} tail at {:e}",
+            c.df1, c.df2, c.nc, c.tail, c.x
+        );
+        let got = match c.tail.as_str() {
+            "upper" => noncentral_f_sf(c.x, c.df1, c.df2, c.nc),
+            "lower" => noncentral_f_cdf(c.x, c.df1, c.df2, c.nc),
+            other => panic!("unknown tail {other}"),
+        };
+        group.probability(case, got, c.value);
     }
     group.finish();
 }

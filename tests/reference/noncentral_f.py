@@ -8,9 +8,13 @@ rerun this script (with scipy installed) only to regenerate it.
 
 Sources of every value, all in scipy.stats:
   central cdf / sf      f.cdf, f.sf
-  central quantiles     f.ppf (lower tail), f.isf (upper tail)
+  central quantiles     f.ppf (lower tail); the upper-tail point x with
+                        sf(x) = q as (df2/df1)(1 - w)/w, w = betaincinv(df2/2,
+                        df1/2, q) from scipy.special (f.isf goes through
+                        1 - q, which costs ~1e-16/q of relative accuracy)
   noncentral cdf / sf   ncf.cdf, ncf.sf   (nc is lambda, the sum-of-squares
-                                           convention; the Poisson mean is nc/2)
+                                           convention; the Poisson mean is nc/2),
+                        also far in both tails, at ncf.isf(q) and ncf.ppf(p)
   noncentral quantiles  ncf.ppf
   fixed-term power      ncf.sf(f.ppf(1 - alpha, d1, d2), d1, d2, nc)
   random-term power     f.sf(f.ppf(1 - alpha, d1, d2) * ratio, d1, d2)
@@ -24,7 +28,7 @@ import warnings
 
 import numpy
 import scipy
-from scipy import stats
+from scipy import special, stats
 
 DF1 = [1.0, 2.0, 3.0, 5.0, 12.0, 50.0]
 DF2 = [1.0, 2.5, 7.43, 10.0, 30.0, 120.0, 1e4, 1e6]
@@ -36,6 +40,8 @@ NONCENTRAL_P = [0.001, 0.05, 0.5, 0.95, 0.999]
 QUANTILE_P = [1e-4, 0.05, 0.5, 0.95, 0.999]
 UPPER_Q = [0.05, 0.01, 0.001, 1e-6]
 NONCENTRAL_QUANTILE_P = [0.05, 0.5, 0.95]
+NONCENTRAL_TINY = [1e-7, 1e-11]
+TAIL_NC = [5.0, 150.0, 2000.0]
 ALPHA = [0.05, 0.01, 0.001]
 POWER_NC = [0.0, 0.5, 2.0, 5.0, 10.0, 20.0, 50.0, 150.0, 500.0, 2000.0]
 RANDOM_ALPHA = [0.05, 0.01]
@@ -53,7 +59,7 @@ def f(v):
 def main():
     central, central_tail = [], []
     central_quantile, central_upper_quantile = [], []
-    noncentral, noncentral_quantile = [], []
+    noncentral, noncentral_tail, noncentral_quantile = [], [], []
     power, random_power = [], []
 
     for d1 in DF1:
@@ -74,8 +80,9 @@ def main():
                     {"p": p, "df1": d1, "df2": d2, "x": f(stats.f.ppf(p, d1, d2))}
                 )
             for q in UPPER_Q:
+                w = special.betaincinv(d2 / 2.0, d1 / 2.0, q)
                 central_upper_quantile.append(
-                    {"q": q, "df1": d1, "df2": d2, "x": f(stats.f.isf(q, d1, d2))}
+                    {"q": q, "df1": d1, "df2": d2, "x": f(d2 / d1 * (1.0 - w) / w)}
                 )
             for nc in NC:
                 for p in NONCENTRAL_P:
@@ -85,6 +92,23 @@ def main():
                          "cdf": f(stats.ncf.cdf(x, d1, d2, nc)),
                          "sf": f(stats.ncf.sf(x, d1, d2, nc))}
                     )
+                if nc in TAIL_NC:
+                    for q in NONCENTRAL_TINY:
+                        for tail, point, prob in [
+                            ("upper", stats.ncf.isf, stats.ncf.sf),
+                            ("lower", stats.ncf.ppf, stats.ncf.cdf),
+                        ]:
+                            # Where scipy cannot place or evaluate a point
+                            # (its quantile overflows for df2 = 1), skip it.
+                            try:
+                                x = f(point(q, d1, d2, nc))
+                                value = f(prob(x, d1, d2, nc))
+                            except (OverflowError, ValueError, RuntimeWarning):
+                                continue
+                            noncentral_tail.append(
+                                {"x": x, "df1": d1, "df2": d2, "nc": nc, "tail": tail,
+                                 "value": value}
+                            )
                 for p in NONCENTRAL_QUANTILE_P:
                     noncentral_quantile.append(
                         {"p": p, "df1": d1, "df2": d2, "nc": nc,
@@ -116,6 +140,7 @@ def main():
         "central_quantile": central_quantile,
         "central_upper_quantile": central_upper_quantile,
         "noncentral": noncentral,
+        "noncentral_tail": noncentral_tail,
         "noncentral_quantile": noncentral_quantile,
         "power": power,
         "random_power": random_power,
