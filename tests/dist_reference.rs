@@ -332,3 +332,103 @@ fn random_power_matches_scipy() {
     }
     group.finish();
 }
+
+// ---------------------------------------------------------------------------
+// High precision: mpmath at 30 digits, from tests/reference/high_precision.py.
+// ---------------------------------------------------------------------------
+
+/// Relative tolerance against the 30-digit values, for every probability (both
+/// tails, however small), quantile and power.
+const HIGH_PRECISION_REL: f64 = 1e-12;
+
+#[derive(Deserialize)]
+struct HighPrecision {
+    source: String,
+    probabilities: Vec<Noncentral>,
+    quantiles: Vec<HighPrecisionQuantile>,
+    power: Vec<Power>,
+}
+
+#[derive(Deserialize)]
+struct HighPrecisionQuantile {
+    tail: String,
+    p: f64,
+    df1: f64,
+    df2: f64,
+    x: f64,
+}
+
+fn high_precision() -> HighPrecision {
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/high_precision.json"
+    );
+    let text = std::fs::read_to_string(path).expect("reference file is committed");
+    let reference: HighPrecision = serde_json::from_str(&text).expect("reference file parses");
+    assert!(
+        reference.source.starts_with("mpmath "),
+        "{}",
+        reference.source
+    );
+    reference
+}
+
+fn relative_error(got: f64, want: f64) -> f64 {
+    if want == 0.0 {
+        got.abs()
+    } else {
+        ((got - want) / want).abs()
+    }
+}
+
+#[test]
+fn high_precision_values() {
+    let reference = high_precision();
+    let mut worst: (f64, String) = (0.0, String::new());
+    let mut failures = Vec::new();
+    let mut check = |case: String, got: f64, want: f64| {
+        let rel = relative_error(got, want);
+        if rel.is_nan() || rel > HIGH_PRECISION_REL {
+            failures.push(format!("{case}: got {got:e}, mpmath {want:e}, rel {rel:e}"));
+        }
+        if rel > worst.0 {
+            worst = (rel, format!("{case}: got {got:e}, mpmath {want:e}"));
+        }
+    };
+    for c in &reference.probabilities {
+        let case = format!("F'({}, {}, {}) at {:e}", c.df1, c.df2, c.nc, c.x);
+        check(
+            format!("{case} cdf"),
+            noncentral_f_cdf(c.x, c.df1, c.df2, c.nc),
+            c.cdf,
+        );
+        check(
+            format!("{case} sf"),
+            noncentral_f_sf(c.x, c.df1, c.df2, c.nc),
+            c.sf,
+        );
+    }
+    for c in &reference.quantiles {
+        let case = format!("F({}, {}) {} p = {:e}", c.df1, c.df2, c.tail, c.p);
+        let got = match c.tail.as_str() {
+            "upper" => f_upper_quantile(c.p, c.df1, c.df2),
+            "lower" => f_quantile(c.p, c.df1, c.df2),
+            other => panic!("unknown tail {other}"),
+        };
+        check(case, got, c.x);
+    }
+    for c in &reference.power {
+        let case = format!("alpha {} F'({}, {}, {})", c.alpha, c.df1, c.df2, c.nc);
+        check(case, fixed_power(c.alpha, c.df1, c.df2, c.nc), c.power);
+    }
+    println!(
+        "high precision: worst relative error {:.2e}: {}",
+        worst.0, worst.1
+    );
+    assert!(
+        failures.is_empty(),
+        "{} outside {HIGH_PRECISION_REL:e}:\n{}",
+        failures.len(),
+        failures.join("\n")
+    );
+}
