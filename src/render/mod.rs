@@ -1,7 +1,9 @@
 //! Renderers: the only place that formats. Each takes a job's result struct and returns
 //! text; none computes statistics.
 
+pub mod analyze;
 pub mod check;
+pub mod simulate;
 
 use comfy_table::{Table, presets};
 
