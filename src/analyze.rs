@@ -162,7 +162,7 @@ pub fn parse_data(
     let factor_list = s.known_names();
     if bytes.iter().all(|b| b.is_ascii_whitespace()) {
         return Err(fail(
-            None,
+            Some(1),
             format!(
                 "the file is empty: it needs a header row naming the factors ({factor_list}) and a response column, then one row per observation"
             ),
@@ -262,17 +262,17 @@ pub fn parse_data(
     let nests: Vec<usize> = (0..k)
         .map(|j| nest_count(&levels, s.factors[j].ancestors))
         .collect();
-    let mut label_index: Vec<Vec<HashMap<String, usize>>> =
-        nests.iter().map(|&n| vec![HashMap::new(); n]).collect();
-    let mut labels: Vec<Vec<Vec<String>>> = nests.iter().map(|&n| vec![Vec::new(); n]).collect();
 
+    // First pass: every row's labels (interned per factor), response and line.
     struct Row {
         cell: usize,
         line: usize,
         y: f64,
     }
+    let mut names_of: Vec<Vec<String>> = vec![Vec::new(); k];
+    let mut ids: Vec<HashMap<String, u32>> = vec![HashMap::new(); k];
+    let mut raw: Vec<u32> = Vec::new();
     let mut rows: Vec<Row> = Vec::new();
-    let mut at = vec![0usize; k];
     let mut record = csv::StringRecord::new();
     loop {
         match reader.read_record(&mut record) {
@@ -291,38 +291,27 @@ pub fn parse_data(
                 ),
             ));
         }
-        for &j in &order {
-            let f = &s.factors[j];
+        for j in 0..k {
             let label = &record[factor_col[j]];
             if label.is_empty() {
                 return Err(fail(
                     Some(line),
-                    format!("no level label for the factor \"{}\": every row needs one", f.name),
+                    format!(
+                        "no level label for the factor \"{}\": every row needs one",
+                        s.factors[j].name
+                    ),
                 ));
             }
-            let nest = index_in(&levels, f.ancestors, &at);
-            let map = &mut label_index[j][nest];
-            at[j] = match map.get(label) {
-                Some(&i) => i,
+            let id = match ids[j].get(label) {
+                Some(&id) => id,
                 None => {
-                    let known = &mut labels[j][nest];
-                    if known.len() == levels[j] {
-                        return Err(fail(
-                            Some(line),
-                            format!(
-                                "the factor \"{}\" has more levels than the layout's {}{}: \"{label}\" comes after {}; check the labels, or the layout's levels",
-                                f.name,
-                                levels[j],
-                                within_text(layout, j, &record, &factor_col),
-                                known.join(", ")
-                            ),
-                        ));
-                    }
-                    known.push(label.to_string());
-                    map.insert(label.to_string(), known.len() - 1);
-                    known.len() - 1
+                    let id = names_of[j].len() as u32;
+                    names_of[j].push(label.to_string());
+                    ids[j].insert(label.to_string(), id);
+                    id
                 }
             };
+            raw.push(id);
         }
         let text = &record[response_col];
         if text.is_empty() {
@@ -341,21 +330,83 @@ pub fn parse_data(
                 ),
             )
         })?;
-        rows.push(Row {
-            cell: balanced_shape.cell(&at),
-            line,
-            y,
-        });
+        rows.push(Row { cell: 0, line, y });
     }
     if rows.is_empty() {
         return Err(fail(
-            None,
+            Some(1),
             format!(
                 "the file has a header but no data rows: add one row per observation ({} in all)",
                 layout.observations()
             ),
         ));
     }
+
+    // Second pass, factor by factor with ancestors first: number each label within its
+    // nest, in order of first appearance, and hold the count to the layout's.
+    let mut level_of: Vec<usize> = vec![0; rows.len() * k];
+    let mut labels: Vec<Vec<Vec<String>>> = nests.iter().map(|&n| vec![Vec::new(); n]).collect();
+    let mut at = vec![0usize; k];
+    for &j in &order {
+        let f = &s.factors[j];
+        let mut index: HashMap<(usize, u32), usize> = HashMap::new();
+        // Per nest: (label id, rows, first line) by level.
+        let mut seen: Vec<Vec<(u32, usize, usize)>> = vec![Vec::new(); nests[j]];
+        let mut nest_of_row = vec![0usize; rows.len()];
+        for (i, row) in rows.iter().enumerate() {
+            for a in 0..k {
+                at[a] = level_of[i * k + a];
+            }
+            let nest = index_in(&levels, f.ancestors, &at);
+            nest_of_row[i] = nest;
+            let id = raw[i * k + j];
+            let level = *index.entry((nest, id)).or_insert_with(|| {
+                seen[nest].push((id, 0, row.line));
+                seen[nest].len() - 1
+            });
+            seen[nest][level].1 += 1;
+            level_of[i * k + j] = level;
+        }
+        for (nest, found) in seen.iter().enumerate() {
+            if found.len() > levels[j] {
+                // The rarest label is the likeliest mistake: point at its first row.
+                let &(id, count, line) = found
+                    .iter()
+                    .min_by_key(|(_, count, line)| (*count, std::cmp::Reverse(*line)))
+                    .unwrap_or(&found[0]);
+                let all: Vec<&str> = found
+                    .iter()
+                    .map(|(id, _, _)| names_of[j][*id as usize].as_str())
+                    .collect();
+                let first = nest_of_row.iter().position(|&n| n == nest).unwrap_or(0);
+                for a in 0..k {
+                    at[a] = level_of[first * k + a];
+                }
+                return Err(fail(
+                    Some(line),
+                    format!(
+                        "the factor \"{}\" has {} levels{} ({}), but the layout declares {}: \"{}\" is the rarest ({count} row{}, first here); check the labels, or the layout's levels",
+                        f.name,
+                        found.len(),
+                        nest_text_at(layout, &labels, j, &at),
+                        all.join(", "),
+                        levels[j],
+                        names_of[j][id as usize],
+                        if count == 1 { "" } else { "s" },
+                    ),
+                ));
+            }
+            labels[j][nest] = found
+                .iter()
+                .map(|(id, _, _)| names_of[j][*id as usize].clone())
+                .collect();
+        }
+    }
+    for (i, row) in rows.iter_mut().enumerate() {
+        row.cell = balanced_shape.cell(&level_of[i * k..(i + 1) * k]);
+    }
+    // What is absent is reported at the end of the data, the line by which it was due.
+    let end = rows.last().map(|r| r.line);
     // Every nest must hold every level.
     for &j in &order {
         let f = &s.factors[j];
@@ -363,9 +414,9 @@ pub fn parse_data(
             if known.len() < levels[j] {
                 let within = nest_text(layout, &labels, j, nest);
                 return Err(fail(
-                    None,
+                    end,
                     format!(
-                        "the factor \"{}\" has {} level{}{within} ({}), but the layout declares {}: add the missing level's rows, or change the layout's levels",
+                        "at the end of the data, the factor \"{}\" has {} level{}{within} ({}), but the layout declares {}: add the missing level's rows, or change the layout's levels",
                         f.name,
                         known.len(),
                         if known.len() == 1 { "" } else { "s" },
@@ -407,16 +458,20 @@ pub fn parse_data(
         count[c] += 1;
     }
     if let Some(c) = (0..cells).find(|&c| count[c] < r) {
-        let what = if count[c] == 0 {
+        let (line, what) = if count[c] == 0 {
+            (end, "at the end of the data, the cell".to_string())
+        } else {
+            (Some(first_line[c]), "the cell".to_string())
+        };
+        let has = if count[c] == 0 {
             "no rows".to_string()
         } else {
-            format!("{} of its {r} replicates", count[c])
+            format!("only {} of its {r} replicates", count[c])
         };
-        let line = (count[c] > 0).then_some(first_line[c]);
         return Err(fail(
             line,
             format!(
-                "the cell {} has {what}, so the data are unbalanced: analyze needs every cell with all its replicates (unbalanced data need the unbalanced-layouts feature, not yet built)",
+                "{what} {} has {has}, so the data are unbalanced: analyze needs every cell with all its replicates (unbalanced data need the unbalanced-layouts feature, not yet built)",
                 cell_text(layout, &balanced_shape, &labels, c)
             ),
         ));
@@ -451,17 +506,13 @@ fn nest_count(levels: &[usize], ancestors: Mask) -> usize {
         .product()
 }
 
-/// ` within light = light2` for a nested factor, from a row's labels.
-fn within_text(layout: &Layout, j: usize, record: &csv::StringRecord, cols: &[usize]) -> String {
-    let s = &layout.structure;
-    let parts: Vec<String> = (0..s.factors.len())
-        .filter(|&a| s.factors[j].ancestors & (1 << a) != 0)
-        .map(|a| format!("{} = {}", s.factors[a].name, &record[cols[a]]))
-        .collect();
-    if parts.is_empty() {
+/// ` within light = light2` for factor j at level indices `at` of its ancestors.
+fn nest_text_at(layout: &Layout, labels: &[Vec<Vec<String>>], j: usize, at: &[usize]) -> String {
+    let anc = layout.structure.factors[j].ancestors;
+    if anc == 0 {
         String::new()
     } else {
-        format!(" within {}", parts.join(", "))
+        format!(" within {}", describe(layout, labels, anc, at))
     }
 }
 
