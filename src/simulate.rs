@@ -646,6 +646,9 @@ pub struct DataSummary {
     pub path: String,
     pub observations: u64,
     pub decimals: usize,
+    /// The grand mean the data were drawn around (`--mean`).
+    pub drawn_around: f64,
+    /// The data set's own grand mean.
     pub mean: f64,
     /// The written data set's mean squares, as `analyze` computes them from the file.
     pub mean_squares: Vec<TermMeanSquare>,
@@ -881,6 +884,7 @@ pub fn simulate(
                 path: d.path.clone(),
                 observations: set.y.len() as u64,
                 decimals: set.decimals,
+                drawn_around: d.mean,
                 mean,
                 mean_squares: (0..model.terms.len())
                     .map(|t| TermMeanSquare {

@@ -299,3 +299,30 @@ fn refuses_what_it_cannot_simulate() {
     let out = emsplan(&["simulate", "problems/coating-lines.toml", "--runs", "1000000000"]);
     assert_eq!(out.status.code(), Some(2));
 }
+
+/// The shipped data set is what its stated command writes, byte for byte, and `analyze`
+/// reads it: `emsplan simulate problems/growth-chambers.toml --seed 7 --mean 12 --data
+/// problems/growth-chambers-data.csv` (README.md).
+#[test]
+fn shipped_data_set_is_reproduced() {
+    let dir = scratch("shipped");
+    let again = dir.join("again.csv");
+    let out = emsplan(&[
+        "simulate",
+        "problems/growth-chambers.toml",
+        "--seed",
+        "7",
+        "--mean",
+        "12",
+        "--runs",
+        "0",
+        "--data",
+        again.to_str().unwrap(),
+    ]);
+    assert!(out.status.success());
+    let shipped = std::fs::read(root().join("problems/growth-chambers-data.csv")).unwrap();
+    assert_eq!(std::fs::read(&again).unwrap(), shipped);
+    let out = emsplan(&["analyze", "problems/growth-chambers.toml", "problems/growth-chambers-data.csv"]);
+    assert!(out.status.success());
+    assert!(String::from_utf8(out.stdout).unwrap().contains("Variance components"));
+}

@@ -230,10 +230,11 @@ fn explanation(r: &SimulateReport) -> Vec<String> {
 fn data_text(r: &SimulateReport) -> Option<(String, Vec<Vec<String>>)> {
     let d = r.data.as_ref()?;
     let line = format!(
-        "Wrote {} observations to {} (the first data set of seed {}, mean {}, responses to {} decimals). Their mean squares, which `emsplan analyze` finds from the file:",
+        "Wrote {} observations to {}: the first data set of seed {}, drawn around a grand mean of {} (its own grand mean is {}), responses to {} decimals. Its mean squares, which `emsplan analyze` finds from the file:",
         d.observations,
         d.path,
         r.seed,
+        sig(d.drawn_around),
         sig(d.mean),
         d.decimals
     );
