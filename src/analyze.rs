@@ -253,7 +253,12 @@ pub fn parse_data(
     }
     let response_name = header[response_col].clone();
 
-    let levels: Vec<usize> = layout.levels.per_factor.iter().map(|&n| n as usize).collect();
+    let levels: Vec<usize> = layout
+        .levels
+        .per_factor
+        .iter()
+        .map(|&n| n as usize)
+        .collect();
     let r = layout.levels.replicates as usize;
     let balanced_shape = Balanced::new(&crate::ems::Model::new(s), &layout.levels)?;
     // Factors in an order where every factor's ancestors come before it.
@@ -420,7 +425,11 @@ pub fn parse_data(
                         f.name,
                         known.len(),
                         if known.len() == 1 { "" } else { "s" },
-                        if known.is_empty() { "none".to_string() } else { known.join(", ") },
+                        if known.is_empty() {
+                            "none".to_string()
+                        } else {
+                            known.join(", ")
+                        },
                         levels[j]
                     ),
                 ));
@@ -523,7 +532,12 @@ fn nest_text(layout: &Layout, labels: &[Vec<Vec<String>>], j: usize, nest: usize
     if anc == 0 {
         return String::new();
     }
-    let levels: Vec<usize> = layout.levels.per_factor.iter().map(|&n| n as usize).collect();
+    let levels: Vec<usize> = layout
+        .levels
+        .per_factor
+        .iter()
+        .map(|&n| n as usize)
+        .collect();
     let mut at = vec![0usize; levels.len()];
     let mut rest = nest;
     for a in (0..levels.len()).rev() {
@@ -538,7 +552,12 @@ fn nest_text(layout: &Layout, labels: &[Vec<Vec<String>>], j: usize, nest: usize
 /// `light = light1, chamber = chamber2` for the factors of `mask` at level indices `at`.
 fn describe(layout: &Layout, labels: &[Vec<Vec<String>>], mask: Mask, at: &[usize]) -> String {
     let s = &layout.structure;
-    let levels: Vec<usize> = layout.levels.per_factor.iter().map(|&n| n as usize).collect();
+    let levels: Vec<usize> = layout
+        .levels
+        .per_factor
+        .iter()
+        .map(|&n| n as usize)
+        .collect();
     (0..s.factors.len())
         .filter(|&j| mask & (1 << j) != 0)
         .map(|j| {

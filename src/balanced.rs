@@ -305,7 +305,10 @@ pub fn cell_summaries(y: &[f64], replicates: usize, centre: f64, totals: &mut [f
     for (cell, t) in y.chunks_exact(replicates).zip(totals.iter_mut()) {
         let sum: f64 = cell.iter().map(|v| v - centre).sum();
         let mean = sum / replicates as f64;
-        within += cell.iter().map(|v| (v - centre - mean).powi(2)).sum::<f64>();
+        within += cell
+            .iter()
+            .map(|v| (v - centre - mean).powi(2))
+            .sum::<f64>();
         *t = sum;
     }
     within

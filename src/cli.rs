@@ -185,7 +185,9 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 )));
             }
             if !mean.is_finite() {
-                return Err(Error::Usage(format!("--mean {mean} is not a finite number")));
+                return Err(Error::Usage(format!(
+                    "--mean {mean} is not a finite number"
+                )));
             }
             let args = PlanningArgs { alpha, power: None };
             let (layout, plan) = load(&layout_path, &args)?;
@@ -219,8 +221,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
         } => {
             let args = PlanningArgs { alpha, power: None };
             let (layout, plan) = load(&layout_path, &args)?;
-            let observations =
-                crate::analyze::read_data(&data, &layout, response.as_deref())?;
+            let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
             Ok(render::analyze::render(&report, format))
         }

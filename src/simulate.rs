@@ -927,7 +927,10 @@ mod tests {
         let (lo, hi) = wilson(0, 10, 1.96);
         assert!(lo.abs() < 1e-12 && (hi - 0.2775).abs() < 1e-4, "{lo} {hi}");
         let (lo, hi) = wilson(5, 10, 1.96);
-        assert!((lo - 0.2366).abs() < 1e-4 && (hi - 0.7634).abs() < 1e-4, "{lo} {hi}");
+        assert!(
+            (lo - 0.2366).abs() < 1e-4 && (hi - 0.7634).abs() < 1e-4,
+            "{lo} {hi}"
+        );
     }
 
     #[test]

@@ -32,7 +32,9 @@ fn layout_from_text(text: &str) -> Layout {
 }
 
 fn layout_from_file(rel: &str) -> Layout {
-    Layout::from_file(&root().join(rel)).expect("the shipped layout loads").0
+    Layout::from_file(&root().join(rel))
+        .expect("the shipped layout loads")
+        .0
 }
 
 fn run(layout: &Layout, data: &str) -> AnalyzeReport {
@@ -104,8 +106,16 @@ fn check_against(r: &AnalyzeReport, reference: &Value) {
         let f = test.f.expect("an F");
         let df2 = test.denominator_df.expect("den. df");
         let p = test.p.expect("a p-value");
-        assert!(close(f, num(&want["f"]), 1e-9), "F of {label}: {f} vs {}", want["f"]);
-        assert!(close(df2, num(&want["df2"]), 1e-9), "den. df of {label}: {df2} vs {}", want["df2"]);
+        assert!(
+            close(f, num(&want["f"]), 1e-9),
+            "F of {label}: {f} vs {}",
+            want["f"]
+        );
+        assert!(
+            close(df2, num(&want["df2"]), 1e-9),
+            "den. df of {label}: {df2} vs {}",
+            want["df2"]
+        );
         let wp = num(&want["p"]);
         assert!(
             (p - wp).abs() <= 1e-9 + 1e-7 * wp,
@@ -136,7 +146,11 @@ fn crossed_layout_against_statsmodels() {
     check_against(&r, &reference["coating"]);
     // The fixture has negative estimates, which must be flagged with the usual advice.
     assert!(r.components.iter().any(|c| c.negative));
-    assert!(r.notes.iter().any(|n| n.contains("negative variance component")));
+    assert!(
+        r.notes
+            .iter()
+            .any(|n| n.contains("negative variance component"))
+    );
 }
 
 /// Chambers nested in light regimes, crossed with cultivars; chamber labels within light.
@@ -155,10 +169,19 @@ fn nested_mixed_layout_against_statsmodels() {
         assert_eq!(table.rows.len(), want.len());
         for row in &table.rows {
             let w = num(&want[&row.levels[0]]);
-            assert!(close(row.mean, w, 1e-12), "{factor} {}: {} vs {w}", row.levels[0], row.mean);
+            assert!(
+                close(row.mean, w, 1e-12),
+                "{factor} {}: {} vs {w}",
+                row.levels[0],
+                row.mean
+            );
         }
     }
-    let cells = r.means.iter().find(|m| m.term == "light x cultivar").unwrap();
+    let cells = r
+        .means
+        .iter()
+        .find(|m| m.term == "light x cultivar")
+        .unwrap();
     assert_eq!((cells.rows.len(), cells.per_mean), (12, 6));
 }
 
@@ -187,11 +210,18 @@ fn moment_estimates_agree_with_error_terms() {
         if a.model.kinds[t] != emsplan::layout::Kind::Random {
             continue;
         }
-        let d: f64 = e.denominator.iter().map(|(v, w)| emsplan::planning::to_f64(w) * ms[*v]).sum();
+        let d: f64 = e
+            .denominator
+            .iter()
+            .map(|(v, w)| emsplan::planning::to_f64(w) * ms[*v])
+            .sum();
         let own = emsplan::planning::to_f64(&a.ems.coefficient(t, t));
         let want = (ms[t] - d) / own;
         let got = theta[t].unwrap();
-        assert!((got - want).abs() < 1e-9 * want.abs().max(1.0), "{t}: {got} vs {want}");
+        assert!(
+            (got - want).abs() < 1e-9 * want.abs().max(1.0),
+            "{t}: {got} vs {want}"
+        );
     }
 }
 
@@ -211,7 +241,11 @@ fn binary_runs_in_every_format() {
             ])
             .output()
             .unwrap();
-        assert!(out.status.success(), "{format}: {}", String::from_utf8_lossy(&out.stderr));
+        assert!(
+            out.status.success(),
+            "{format}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
         let text = String::from_utf8(out.stdout).unwrap();
         assert!(text.contains("recipe x line x shift"), "{format}");
         if format == "json" {
@@ -231,7 +265,8 @@ fn binary_runs_in_every_format() {
 fn response_column_choice() {
     let dir = Path::new(env!("CARGO_TARGET_TMPDIR")).join("analyze-response");
     std::fs::create_dir_all(&dir).unwrap();
-    let src = std::fs::read_to_string(root().join("tests/fixtures/data/batches-nested.csv")).unwrap();
+    let src =
+        std::fs::read_to_string(root().join("tests/fixtures/data/batches-nested.csv")).unwrap();
     let mut lines = src.lines();
     let mut text = format!("{},operator\n", lines.next().unwrap());
     for l in lines {
@@ -242,10 +277,18 @@ fn response_column_choice() {
     let lay = dir.join("batches.toml");
     std::fs::write(&lay, BATCHES).unwrap();
     let bin = env!("CARGO_BIN_EXE_emsplan");
-    let out = Command::new(bin).arg("analyze").arg(&lay).arg(&data).output().unwrap();
+    let out = Command::new(bin)
+        .arg("analyze")
+        .arg(&lay)
+        .arg(&data)
+        .output()
+        .unwrap();
     assert_eq!(out.status.code(), Some(1));
     let err = String::from_utf8(out.stderr).unwrap();
-    assert!(err.contains("--response") && err.contains("purity, operator"), "{err}");
+    assert!(
+        err.contains("--response") && err.contains("purity, operator"),
+        "{err}"
+    );
     let out = Command::new(bin)
         .arg("analyze")
         .arg(&lay)

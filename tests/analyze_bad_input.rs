@@ -77,26 +77,45 @@ fn the_good_fixture_is_accepted() {
         .args(["analyze", LAYOUT, "tests/fixtures/data/chambers-nested.csv"])
         .output()
         .unwrap();
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
 }
 
 #[test]
 fn a_factor_column_is_missing() {
     // The header names "chambre" instead of "chamber".
-    case("wrong-column", |l| l[0] = "light,chambre,cultivar,mass".into(), Some(1), "no column for the factor \"chamber\"");
+    case(
+        "wrong-column",
+        |l| l[0] = "light,chambre,cultivar,mass".into(),
+        Some(1),
+        "no column for the factor \"chamber\"",
+    );
 }
 
 #[test]
 fn too_many_levels() {
     // Line 5, the first pot of cultivar2 in its cell, says cultivar5: a fifth label, and
     // the rarest, so the message points at its row.
-    case("five-cultivars", |l| l[4] = l[4].replace("cultivar2", "cultivar5"), Some(5), "has 5 levels (cultivar1, cultivar5, cultivar2, cultivar3, cultivar4), but the layout declares 4: \"cultivar5\" is the rarest (1 row, first here)");
+    case(
+        "five-cultivars",
+        |l| l[4] = l[4].replace("cultivar2", "cultivar5"),
+        Some(5),
+        "has 5 levels (cultivar1, cultivar5, cultivar2, cultivar3, cultivar4), but the layout declares 4: \"cultivar5\" is the rarest (1 row, first here)",
+    );
 }
 
 #[test]
 fn a_nested_factor_with_too_many_levels_in_its_nest() {
     // Line 2 puts a third chamber under light1.
-    case("three-chambers", |l| l[1] = l[1].replace("chamber1", "chamber3"), Some(2), "within light = light1");
+    case(
+        "three-chambers",
+        |l| l[1] = l[1].replace("chamber1", "chamber3"),
+        Some(2),
+        "within light = light1",
+    );
 }
 
 #[test]
@@ -118,46 +137,113 @@ fn too_few_levels() {
 fn a_missing_cell() {
     // Lines 2-4 are the three pots of light1, chamber1, cultivar1; without them the file
     // ends on line 70.
-    case("missing-cell", |l| { l.drain(1..4); }, Some(70), "the cell light = light1, chamber = chamber1, cultivar = cultivar1 has no rows");
+    case(
+        "missing-cell",
+        |l| {
+            l.drain(1..4);
+        },
+        Some(70),
+        "the cell light = light1, chamber = chamber1, cultivar = cultivar1 has no rows",
+    );
 }
 
 #[test]
 fn a_cell_short_of_replicates() {
     // Line 3 removed: the cell keeps its rows on lines 2 and 3 (after the removal).
-    case("short-cell", |l| { l.remove(2); }, Some(2), "only 2 of its 3 replicates");
+    case(
+        "short-cell",
+        |l| {
+            l.remove(2);
+        },
+        Some(2),
+        "only 2 of its 3 replicates",
+    );
 }
 
 #[test]
 fn a_duplicated_row() {
     // Line 2 repeated after line 4: the copy lands on line 5, a fourth pot in the cell.
-    case("duplicated-row", |l| { let row = l[1].clone(); l.insert(4, row); }, Some(5), "one row too many for the cell light = light1, chamber = chamber1, cultivar = cultivar1");
+    case(
+        "duplicated-row",
+        |l| {
+            let row = l[1].clone();
+            l.insert(4, row);
+        },
+        Some(5),
+        "one row too many for the cell light = light1, chamber = chamber1, cultivar = cultivar1",
+    );
 }
 
 #[test]
 fn a_non_numeric_response() {
-    case("not-a-number", |l| l[9] = l[9].rsplit_once(',').map(|(a, _)| format!("{a},12.5g")).unwrap(), Some(10), "is \"12.5g\"");
+    case(
+        "not-a-number",
+        |l| {
+            l[9] = l[9]
+                .rsplit_once(',')
+                .map(|(a, _)| format!("{a},12.5g"))
+                .unwrap()
+        },
+        Some(10),
+        "is \"12.5g\"",
+    );
 }
 
 #[test]
 fn a_comma_decimal_gives_the_field_count() {
     // 12,5 splits into two fields: the row has one field too many.
-    case("comma-decimal", |l| l[6] = l[6].rsplit_once(',').map(|(a, _)| format!("{a},12,5")).unwrap(), Some(7), "the row has 5 fields, but the header has 4 columns");
+    case(
+        "comma-decimal",
+        |l| {
+            l[6] = l[6]
+                .rsplit_once(',')
+                .map(|(a, _)| format!("{a},12,5"))
+                .unwrap()
+        },
+        Some(7),
+        "the row has 5 fields, but the header has 4 columns",
+    );
 }
 
 #[test]
 fn a_missing_response_value() {
-    case("empty-response", |l| l[11] = l[11].rsplit_once(',').map(|(a, _)| format!("{a},")).unwrap(), Some(12), "the response \"mass\" is missing");
+    case(
+        "empty-response",
+        |l| {
+            l[11] = l[11]
+                .rsplit_once(',')
+                .map(|(a, _)| format!("{a},"))
+                .unwrap()
+        },
+        Some(12),
+        "the response \"mass\" is missing",
+    );
 }
 
 #[test]
 fn an_infinite_response() {
-    case("inf-response", |l| l[20] = l[20].rsplit_once(',').map(|(a, _)| format!("{a},inf")).unwrap(), Some(21), "not a finite number");
+    case(
+        "inf-response",
+        |l| {
+            l[20] = l[20]
+                .rsplit_once(',')
+                .map(|(a, _)| format!("{a},inf"))
+                .unwrap()
+        },
+        Some(21),
+        "not a finite number",
+    );
 }
 
 #[test]
 fn a_missing_label() {
     // Line 31 loses its light label.
-    case("empty-label", |l| l[30] = l[30].split_once(',').map(|(_, b)| format!(",{b}")).unwrap(), Some(31), "no level label for the factor \"light\"");
+    case(
+        "empty-label",
+        |l| l[30] = l[30].split_once(',').map(|(_, b)| format!(",{b}")).unwrap(),
+        Some(31),
+        "no level label for the factor \"light\"",
+    );
 }
 
 #[test]
@@ -193,8 +279,18 @@ fn not_utf8() {
 #[test]
 fn a_response_that_is_not_there() {
     let path = root().join("tests/fixtures/data/chambers-nested.csv");
-    assert_refused(&path, &["--response", "weight"], Some(1), "no column \"weight\"");
-    assert_refused(&path, &["--response", "light"], Some(1), "is a factor, not a response");
+    assert_refused(
+        &path,
+        &["--response", "weight"],
+        Some(1),
+        "no column \"weight\"",
+    );
+    assert_refused(
+        &path,
+        &["--response", "light"],
+        Some(1),
+        "is a factor, not a response",
+    );
 }
 
 #[test]
@@ -213,5 +309,10 @@ fn only_factor_columns() {
 
 #[test]
 fn a_header_naming_a_column_twice() {
-    case("twice", |l| l[0] = "light,chamber,cultivar,light".into(), Some(1), "names the column \"light\" twice");
+    case(
+        "twice",
+        |l| l[0] = "light,chamber,cultivar,light".into(),
+        Some(1),
+        "names the column \"light\" twice",
+    );
 }

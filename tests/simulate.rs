@@ -77,16 +77,30 @@ fn assert_agrees(r: &SimulateReport, context: &str) {
         }
         let Some(x) = &t.test else { continue };
         if let Some(null) = x.null {
-            assert_eq!(x.null_flag, !null.holds(r.alpha), "{context}: flag of {}", t.label);
+            assert_eq!(
+                x.null_flag,
+                !null.holds(r.alpha),
+                "{context}: flag of {}",
+                t.label
+            );
         }
         if x.verdict != emsplan::errorterm::Verdict::Exact {
             continue;
         }
-        let binomial = |rate: f64, p: f64| (rate - p).abs() <= TOLERANCE_SE * (p * (1.0 - p) / n).sqrt();
+        let binomial =
+            |rate: f64, p: f64| (rate - p).abs() <= TOLERANCE_SE * (p * (1.0 - p) / n).sqrt();
         let null = x.null.unwrap();
-        assert!(binomial(null.rate, r.alpha), "{context}: null of {}: {null:?}", t.label);
+        assert!(
+            binomial(null.rate, r.alpha),
+            "{context}: null of {}: {null:?}",
+            t.label
+        );
         if let (Some(power), Some(p)) = (x.power, x.analytic_power) {
-            assert!(binomial(power.rate, p), "{context}: power of {}: {power:?} vs {p}", t.label);
+            assert!(
+                binomial(power.rate, p),
+                "{context}: power of {}: {power:?} vs {p}",
+                t.label
+            );
         }
     }
 }
@@ -178,13 +192,27 @@ fn quasi_f_drift_matches_an_independent_monte_carlo() {
     let within = |ours: f64, theirs: f64, what: &str| {
         let p = (ours + theirs) / 2.0;
         let se = (p * (1.0 - p) * (1.0 / n + 1.0 / m)).sqrt().max(1e-4);
-        assert!((ours - theirs).abs() < 4.0 * se, "{what}: {ours} vs reference {theirs} (se {se})");
+        assert!(
+            (ours - theirs).abs() < 4.0 * se,
+            "{what}: {ours} vs reference {theirs} (se {se})"
+        );
     };
-    within(x.null.unwrap().rate, want["null_rate"].as_f64().unwrap(), "null rate");
-    within(x.null_undefined as f64 / n, want["undefined"].as_f64().unwrap(), "no quasi-F");
+    within(
+        x.null.unwrap().rate,
+        want["null_rate"].as_f64().unwrap(),
+        "null rate",
+    );
+    within(
+        x.null_undefined as f64 / n,
+        want["undefined"].as_f64().unwrap(),
+        "no quasi-F",
+    );
     let df = x.simulated_df.unwrap();
     let want_df = want["mean_df"].as_f64().unwrap();
-    assert!((df - want_df).abs() < 0.03 * want_df, "mean df {df} vs {want_df}");
+    assert!(
+        (df - want_df).abs() < 0.03 * want_df,
+        "mean df {df} vs {want_df}"
+    );
     // The approximation drifts well below alpha here, and the report flags it.
     assert!(x.null_flag && x.null.unwrap().high < 0.05);
     // The layout's mean squares and exact tests still hold.
@@ -217,17 +245,34 @@ fn dummy_data_round_trip_through_analyze() {
             args.push("--unique-labels");
         }
         let out = emsplan(&args);
-        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
         let sim: Value = serde_json::from_slice(&out.stdout).unwrap();
         let text = std::fs::read_to_string(&data).unwrap();
         assert_eq!(text.lines().next(), Some("light,chamber,cultivar,response"));
         assert_eq!(text.lines().count(), 73);
-        let chamber_labels: std::collections::BTreeSet<&str> =
-            text.lines().skip(1).map(|l| l.split(',').nth(1).unwrap()).collect();
+        let chamber_labels: std::collections::BTreeSet<&str> = text
+            .lines()
+            .skip(1)
+            .map(|l| l.split(',').nth(1).unwrap())
+            .collect();
         assert_eq!(chamber_labels.len(), if unique { 6 } else { 2 }, "{unique}");
 
-        let out = emsplan(&["analyze", "problems/growth-chambers.toml", data_s, "--format", "json"]);
-        assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+        let out = emsplan(&[
+            "analyze",
+            "problems/growth-chambers.toml",
+            data_s,
+            "--format",
+            "json",
+        ]);
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
         let ana: Value = serde_json::from_slice(&out.stdout).unwrap();
         let written = sim["data"]["mean_squares"].as_array().unwrap();
         let terms = ana["terms"].as_array().unwrap();
@@ -235,7 +280,11 @@ fn dummy_data_round_trip_through_analyze() {
         for (w, t) in written.iter().zip(terms) {
             assert_eq!(w["term"], t["label"]);
             let (a, b) = (w["ms"].as_f64().unwrap(), t["ms"].as_f64().unwrap());
-            assert!((a - b).abs() <= 1e-12 * a.abs(), "{}: {a} vs {b}", w["term"]);
+            assert!(
+                (a - b).abs() <= 1e-12 * a.abs(),
+                "{}: {a} vs {b}",
+                w["term"]
+            );
         }
         assert!((ana["grand_mean"].as_f64().unwrap() - 12.0).abs() < 1.5);
     }
@@ -249,7 +298,16 @@ fn seeded_and_independent_of_threads() {
         let out = Command::new(BIN)
             .current_dir(root())
             .env("RAYON_NUM_THREADS", threads)
-            .args(["simulate", "problems/coating-lines.toml", "--runs", "700", "--seed", seed, "--format", "json"])
+            .args([
+                "simulate",
+                "problems/coating-lines.toml",
+                "--runs",
+                "700",
+                "--seed",
+                seed,
+                "--format",
+                "json",
+            ])
             .output()
             .unwrap();
         assert!(out.status.success());
@@ -265,12 +323,22 @@ fn seeded_and_independent_of_threads() {
 #[test]
 fn binary_runs_in_every_format() {
     for format in ["text", "json", "markdown", "csv"] {
-        let out = emsplan(&["simulate", "problems/coating-lines.toml", "--runs", "300", "--format", format]);
+        let out = emsplan(&[
+            "simulate",
+            "problems/coating-lines.toml",
+            "--runs",
+            "300",
+            "--format",
+            format,
+        ]);
         assert!(out.status.success(), "{format}");
         let text = String::from_utf8(out.stdout).unwrap();
         assert!(text.contains("recipe x line x shift"), "{format}");
         if format == "text" || format == "markdown" {
-            assert!(text.contains("statistician") && text.contains("Wilson"), "{format}");
+            assert!(
+                text.contains("statistician") && text.contains("Wilson"),
+                "{format}"
+            );
         }
     }
 }
@@ -282,7 +350,10 @@ fn refuses_what_it_cannot_simulate() {
     assert_eq!(out.status.code(), Some(1));
     let err = String::from_utf8(out.stderr).unwrap();
     assert_eq!(err.lines().count(), 1);
-    assert!(err.contains("problems/tank-split-plot.toml") && err.contains("[prior]"), "{err}");
+    assert!(
+        err.contains("problems/tank-split-plot.toml") && err.contains("[prior]"),
+        "{err}"
+    );
 
     let dir = scratch("finite");
     let path = dir.join("crew.toml");
@@ -294,9 +365,17 @@ fn refuses_what_it_cannot_simulate() {
     let out = emsplan(&["simulate", path.to_str().unwrap()]);
     assert_eq!(out.status.code(), Some(1));
     let err = String::from_utf8(out.stderr).unwrap();
-    assert!(err.contains("population") && err.contains("operator"), "{err}");
+    assert!(
+        err.contains("population") && err.contains("operator"),
+        "{err}"
+    );
 
-    let out = emsplan(&["simulate", "problems/coating-lines.toml", "--runs", "1000000000"]);
+    let out = emsplan(&[
+        "simulate",
+        "problems/coating-lines.toml",
+        "--runs",
+        "1000000000",
+    ]);
     assert_eq!(out.status.code(), Some(2));
 }
 
@@ -322,7 +401,15 @@ fn shipped_data_set_is_reproduced() {
     assert!(out.status.success());
     let shipped = std::fs::read(root().join("problems/growth-chambers-data.csv")).unwrap();
     assert_eq!(std::fs::read(&again).unwrap(), shipped);
-    let out = emsplan(&["analyze", "problems/growth-chambers.toml", "problems/growth-chambers-data.csv"]);
+    let out = emsplan(&[
+        "analyze",
+        "problems/growth-chambers.toml",
+        "problems/growth-chambers-data.csv",
+    ]);
     assert!(out.status.success());
-    assert!(String::from_utf8(out.stdout).unwrap().contains("Variance components"));
+    assert!(
+        String::from_utf8(out.stdout)
+            .unwrap()
+            .contains("Variance components")
+    );
 }

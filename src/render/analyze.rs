@@ -129,7 +129,11 @@ fn csv_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
                 row.df.to_string(),
                 row.ss.to_string(),
                 plain(row.ms),
-                if t.is_some() { over(row) } else { String::new() },
+                if t.is_some() {
+                    over(row)
+                } else {
+                    String::new()
+                },
                 t.map_or(String::new(), |t| t.verdict.name().into()),
                 plain(t.and_then(|t| t.f)),
                 plain(t.and_then(|t| t.denominator_df)),

@@ -55,7 +55,11 @@ fn ms_rows(r: &SimulateReport) -> Vec<Vec<String>> {
                     (Some(m), Some(se)) => format!("{} ({})", sig(m), sig(se)),
                     _ => "-".into(),
                 },
-                if t.ms_flag { "DIFFERS".into() } else { String::new() },
+                if t.ms_flag {
+                    "DIFFERS".into()
+                } else {
+                    String::new()
+                },
             ]
         })
         .collect()
@@ -191,9 +195,13 @@ fn explanation(r: &SimulateReport) -> Vec<String> {
             r.convention.name(),
             r.alpha
         ),
-        "Under the null the term's own component is set to zero and everything else is kept.".into(),
+        "Under the null the term's own component is set to zero and everything else is kept."
+            .into(),
     ];
-    if r.terms.iter().any(|t| tested(t).is_some_and(|x| x.verdict == Verdict::Synthetic)) {
+    if r.terms
+        .iter()
+        .any(|t| tested(t).is_some_and(|x| x.verdict == Verdict::Synthetic))
+    {
         out.push("Synthetic tests: each data set's quasi-F takes its Satterthwaite df from that data set's own mean squares, as an analysis of real data would; the null rate shows how far the approximation drifts from alpha. \"no quasi-F\" counts the data sets (planning values / null) whose denominator was not positive, counted as not rejecting.".into());
     }
     let flagged: Vec<String> = r
@@ -294,7 +302,9 @@ pub fn render(r: &SimulateReport, format: Format) -> String {
                 r.observations
             );
             if r.runs > 0 {
-                out.push_str("\nMean squares against their expected values at the planning values:\n\n");
+                out.push_str(
+                    "\nMean squares against their expected values at the planning values:\n\n",
+                );
                 out.push_str(&text_table(&MS_HEADER, ms_rows(r)));
                 out.push_str("\nPlanned tests, rejection rates with Wilson score intervals:\n\n");
                 out.push_str(&text_table(&TEST_HEADER, test_rows(r)));
