@@ -132,7 +132,7 @@ impl Balanced {
                 let s_mask: Mask = (0..live.len())
                     .filter(|b| sub & (1 << b) != 0)
                     .fold(0, |m, b| m | (1 << live[b]));
-                let sign = if (live.len() as u32 - sub.count_ones()) % 2 == 0 {
+                let sign = if (live.len() as u32 - sub.count_ones()).is_multiple_of(2) {
                     1.0
                 } else {
                     -1.0
