@@ -3,6 +3,8 @@
 
 pub mod analyze;
 pub mod check;
+pub mod compare;
+pub mod report;
 pub mod simulate;
 
 use comfy_table::{Table, presets};
