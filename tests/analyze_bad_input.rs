@@ -2,8 +2,8 @@
 //! CSV line (where there is one) and what is wrong, never a panic.
 //!
 //! Each case edits the good fixture `tests/fixtures/data/chambers-nested.csv` (the header
-//! on line 1, then 72 rows on lines 2 to 73, for `problems/growth-chambers.toml`: 3 light
-//! regimes, 2 chambers in each, 4 cultivars, 3 pots per cell) and states the line the
+//! on line 1, then 108 rows on lines 2 to 109, for `problems/growth-chambers.toml`: 3
+//! light regimes, 3 chambers in each, 4 cultivars, 3 pots per cell) and states the line the
 //! message must point at, counted from that layout of the file. Why each input is bad is a
 //! fact of balanced designs (every cell holds the same number of observations; common
 //! practice).
@@ -109,18 +109,18 @@ fn too_many_levels() {
 
 #[test]
 fn a_nested_factor_with_too_many_levels_in_its_nest() {
-    // Line 2 puts a third chamber under light1.
+    // Line 2 puts a fourth chamber under light1.
     case(
-        "three-chambers",
-        |l| l[1] = l[1].replace("chamber1", "chamber3"),
+        "four-chambers",
+        |l| l[1] = l[1].replace("chamber1", "chamber4"),
         Some(2),
-        "within light = light1",
+        "has 4 levels within light = light1",
     );
 }
 
 #[test]
 fn too_few_levels() {
-    // Every cultivar4 row becomes cultivar3: only 3 cultivars, noticed at the end (line 73).
+    // Every cultivar4 row becomes cultivar3: only 3 cultivars, noticed at the end (line 109).
     case(
         "three-cultivars",
         |l| {
@@ -128,7 +128,7 @@ fn too_few_levels() {
                 *x = x.replace("cultivar4", "cultivar3");
             }
         },
-        Some(73),
+        Some(109),
         "has 3 levels (cultivar1, cultivar2, cultivar3), but the layout declares 4",
     );
 }
@@ -136,13 +136,13 @@ fn too_few_levels() {
 #[test]
 fn a_missing_cell() {
     // Lines 2-4 are the three pots of light1, chamber1, cultivar1; without them the file
-    // ends on line 70.
+    // ends on line 106.
     case(
         "missing-cell",
         |l| {
             l.drain(1..4);
         },
-        Some(70),
+        Some(106),
         "the cell light = light1, chamber = chamber1, cultivar = cultivar1 has no rows",
     );
 }

@@ -253,13 +253,13 @@ fn dummy_data_round_trip_through_analyze() {
         let sim: Value = serde_json::from_slice(&out.stdout).unwrap();
         let text = std::fs::read_to_string(&data).unwrap();
         assert_eq!(text.lines().next(), Some("light,chamber,cultivar,response"));
-        assert_eq!(text.lines().count(), 73);
+        assert_eq!(text.lines().count(), 109);
         let chamber_labels: std::collections::BTreeSet<&str> = text
             .lines()
             .skip(1)
             .map(|l| l.split(',').nth(1).unwrap())
             .collect();
-        assert_eq!(chamber_labels.len(), if unique { 6 } else { 2 }, "{unique}");
+        assert_eq!(chamber_labels.len(), if unique { 9 } else { 3 }, "{unique}");
 
         let out = emsplan(&[
             "analyze",

@@ -63,12 +63,12 @@ def write_fixtures():
                     rows.append((f"recipe{r + 1}", f"line{l + 1}", f"shift{s + 1}", round(y, 2)))
     pd.DataFrame(rows, columns=["recipe", "line", "shift", "thickness"]).to_csv(DATA / "coating-crossed.csv", index=False)
 
-    # Shoot mass (g): light (fixed, 3) / chamber (random, 2 in each light) x cultivar (fixed, 4),
+    # Shoot mass (g): light (fixed, 3) / chamber (random, 3 in each light) x cultivar (fixed, 4),
     # 3 pots; chambers numbered within their light.
     rng = np.random.default_rng(20240612)
     rows = []
     for a in range(3):
-        for c in range(2):
+        for c in range(3):
             ch = rng.normal(0, 0.8)
             for v in range(4):
                 cc = rng.normal(0, 0.4)
