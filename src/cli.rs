@@ -74,9 +74,6 @@ pub enum Command {
         /// The response column (default: the only column that is not a factor, or `response`).
         #[arg(long)]
         response: Option<String>,
-        /// Level of the tests, for the notes (overrides `alpha` in the file; default 0.05).
-        #[arg(long)]
-        alpha: Option<f64>,
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
@@ -271,10 +268,12 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             layout: layout_path,
             data,
             response,
-            alpha,
             format,
         } => {
-            let args = PlanningArgs { alpha, power: None };
+            let args = PlanningArgs {
+                alpha: None,
+                power: None,
+            };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
             let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
