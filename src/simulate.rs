@@ -21,6 +21,12 @@
 //!   restricted model whose expected mean squares `ems` computes (`tests/monte_carlo.rs`
 //!   holds the engine to it). Under the unrestricted convention they are left independent.
 //!   A random term without a prior has no effect.
+//! - A random factor from a finite population of N (Cornfield and Tukey 1956): the effects
+//!   of every random term live in it are drawn over the whole population and centred over
+//!   it (so σ² = Σ effect² / (N - 1) over the population), and in every data set the
+//!   layout's n levels in each nest are a fresh sample without replacement of the N, the
+//!   same sample for every term. Under either convention this gives the factors (1 - n/N)
+//!   of the engine's expected mean squares (the tests hold it).
 //!
 //! # Monte Carlo
 //!
@@ -37,7 +43,7 @@
 //! (p̂ + z²/2n ± z √(p̂(1 - p̂)/n + z²/4n²)) / (1 + z²/n), and are flagged when the value
 //! they are held against (alpha, or the analytic power) lies outside it.
 
-use rand::SeedableRng;
+use rand::{RngExt, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
 use rayon::prelude::*;
@@ -75,11 +81,40 @@ struct RandomTerm {
     /// Where the term's effects start in the scratch buffer, and how many there are.
     offset: usize,
     size: usize,
-    /// Full cell -> the term's cell.
+    /// Full cell -> the term's cell, counting the subscripts from finite populations at 0.
     map: Vec<u32>,
-    /// The fixed live subscripts it is centred over (restricted convention).
+    /// Live subscripts from a finite population, whose place in the term's array is the
+    /// sampled population member, different in every data set.
+    finite: Vec<FiniteDim>,
+    /// Where its per-data-set map lives in the scratch maps (terms with `finite` only).
+    map_slot: usize,
+    /// The subscripts it is centred over: fixed live ones (restricted convention) and
+    /// live ones from a finite population.
     centre: Vec<CentreAlong>,
 }
+
+/// A live subscript of a random term drawn from a finite population.
+#[derive(Debug, Clone)]
+struct FiniteDim {
+    /// Index into `Simulator::finite`.
+    factor: usize,
+    /// Stride of the subscript in the term's array.
+    stride: u32,
+    /// For each full cell: where its level's sampled member is in the factor's sample.
+    pos: Vec<u32>,
+}
+
+/// A random factor whose levels are a sample without replacement from a finite
+/// population: in every data set, n of its N members in each of its nests.
+#[derive(Debug, Clone, Copy)]
+struct FinitePopulation {
+    population: u32,
+    levels: usize,
+    nests: usize,
+}
+
+/// Most effects the random terms may need per data set, finite populations included.
+const MAX_EFFECTS: usize = 1 << 26;
 
 #[derive(Debug, Clone, Copy)]
 enum Own {
@@ -109,6 +144,8 @@ pub struct Simulator {
     fixed_sum: Vec<f64>,
     random: Vec<RandomTerm>,
     effects_len: usize,
+    finite: Vec<FinitePopulation>,
+    map_slots: usize,
     sigma: f64,
     tests: Vec<PlannedTest>,
     /// Expected mean squares at the planning values.
@@ -119,6 +156,12 @@ pub struct Simulator {
 #[derive(Debug, Clone)]
 pub struct Scratch {
     effects: Vec<f64>,
+    /// The sampled population members of each finite factor, nest by nest.
+    samples: Vec<Vec<u32>>,
+    /// Room for one population's members while sampling.
+    members: Vec<u32>,
+    /// Per-data-set maps of the random terms with finite live subscripts.
+    maps: Vec<Vec<u32>>,
     cell_mean: Vec<f64>,
     eps: Vec<f64>,
     totals: Vec<f64>,
@@ -136,15 +179,6 @@ impl Simulator {
             return Err(Error::invalid(
                 None,
                 "simulate draws data from the planning values: add a [prior] table with at least `residual`, the standard deviation within cells (see docs/planning.md)",
-            ));
-        }
-        if let Some(f) = s.factors.iter().find(|f| f.population.is_some()) {
-            return Err(Error::invalid(
-                None,
-                format!(
-                    "simulate draws random levels from infinite populations, but \"{}\" has a finite `population`: remove it to simulate (check and analyze use it as it is)",
-                    f.name
-                ),
             ));
         }
         let analysis = Analysis::new(layout)?;
@@ -169,6 +203,23 @@ impl Simulator {
         let mut random = Vec::new();
         let mut effects_len = 0;
         let mut own = vec![Own::Nothing; model.terms.len()];
+        // Factors from finite populations, and where each cell's level sits in its sample.
+        let mut finite_index = vec![usize::MAX; k];
+        let mut finite = Vec::new();
+        for (j, f) in s.factors.iter().enumerate() {
+            if let Some(n_pop) = f.population {
+                finite_index[j] = finite.len();
+                finite.push(FinitePopulation {
+                    population: u32::try_from(n_pop).map_err(|_| too_many_effects())?,
+                    levels: lv[j],
+                    nests: (0..k)
+                        .filter(|a| f.ancestors & (1 << a) != 0)
+                        .map(|a| lv[a])
+                        .product(),
+                });
+            }
+        }
+        let mut map_slots = 0;
         for (t, term) in model.terms.iter().enumerate() {
             if term.is_residual() {
                 continue;
@@ -203,35 +254,84 @@ impl Simulator {
                     }
                     let subs = term.subscripts();
                     let dims: Vec<usize> = (0..k).filter(|j| subs & (1 << j) != 0).collect();
-                    let size: usize = dims.iter().map(|&j| lv[j]).product();
+                    let is_finite =
+                        |j: usize| term.live & (1 << j) != 0 && finite_index[j] != usize::MAX;
+                    // A live subscript from a finite population spans the whole population.
+                    let extent = |j: usize| {
+                        if is_finite(j) {
+                            finite[finite_index[j]].population as usize
+                        } else {
+                            lv[j]
+                        }
+                    };
+                    let size = dims
+                        .iter()
+                        .try_fold(1usize, |p, &j| p.checked_mul(extent(j)))
+                        .filter(|&n| n <= MAX_EFFECTS)
+                        .ok_or_else(too_many_effects)?;
+                    let stride_of =
+                        |d: usize| -> usize { dims[d + 1..].iter().map(|&j| extent(j)).product() };
                     let map = cell_levels
                         .iter()
-                        .map(|at| index_in(&lv, subs, at) as u32)
+                        .map(|at| {
+                            dims.iter()
+                                .enumerate()
+                                .filter(|&(_, &j)| !is_finite(j))
+                                .map(|(d, &j)| at[j] * stride_of(d))
+                                .sum::<usize>() as u32
+                        })
                         .collect();
-                    let centre = if s.convention == Convention::Restricted {
-                        dims.iter()
-                            .enumerate()
-                            .filter(|&(_, &j)| {
-                                term.live & (1 << j) != 0 && s.factors[j].kind == Kind::Fixed
-                            })
-                            .map(|(d, _)| CentreAlong {
-                                outer: dims[..d].iter().map(|&j| lv[j]).product(),
-                                size: lv[dims[d]],
-                                inner: dims[d + 1..].iter().map(|&j| lv[j]).product(),
-                            })
-                            .collect()
-                    } else {
-                        Vec::new()
-                    };
+                    let finite_dims: Vec<FiniteDim> = dims
+                        .iter()
+                        .enumerate()
+                        .filter(|&(_, &j)| is_finite(j))
+                        .map(|(d, &j)| FiniteDim {
+                            factor: finite_index[j],
+                            stride: stride_of(d) as u32,
+                            pos: cell_levels
+                                .iter()
+                                .map(|at| {
+                                    (index_in(&lv, s.factors[j].ancestors, at) * lv[j] + at[j])
+                                        as u32
+                                })
+                                .collect(),
+                        })
+                        .collect();
+                    let restricted = s.convention == Convention::Restricted;
+                    let centre = dims
+                        .iter()
+                        .enumerate()
+                        .filter(|&(_, &j)| {
+                            let fixed_live =
+                                term.live & (1 << j) != 0 && s.factors[j].kind == Kind::Fixed;
+                            (restricted && fixed_live) || is_finite(j)
+                        })
+                        .map(|(d, _)| CentreAlong {
+                            outer: dims[..d].iter().map(|&j| extent(j)).product(),
+                            size: extent(dims[d]),
+                            inner: stride_of(d),
+                        })
+                        .collect();
                     own[t] = Own::Random(random.len());
+                    let map_slot = if finite_dims.is_empty() {
+                        usize::MAX
+                    } else {
+                        map_slots += 1;
+                        map_slots - 1
+                    };
                     random.push(RandomTerm {
                         sd,
                         offset: effects_len,
                         size,
                         map,
+                        finite: finite_dims,
+                        map_slot,
                         centre,
                     });
-                    effects_len += size;
+                    effects_len = effects_len
+                        .checked_add(size)
+                        .filter(|&n| n <= MAX_EFFECTS)
+                        .ok_or_else(too_many_effects)?;
                 }
             }
         }
@@ -272,6 +372,8 @@ impl Simulator {
             fixed_sum,
             random,
             effects_len,
+            finite,
+            map_slots,
             sigma,
             tests,
             expected,
@@ -286,6 +388,20 @@ impl Simulator {
         let terms = self.analysis.model.terms.len();
         Scratch {
             effects: vec![0.0; self.effects_len],
+            samples: self
+                .finite
+                .iter()
+                .map(|f| vec![0; f.nests * f.levels])
+                .collect(),
+            members: vec![
+                0;
+                self.finite
+                    .iter()
+                    .map(|f| f.population as usize)
+                    .max()
+                    .unwrap_or(0)
+            ],
+            maps: vec![vec![0; self.balanced.cells()]; self.map_slots],
             cell_mean: vec![0.0; self.balanced.cells()],
             eps: vec![0.0; self.balanced.observations()],
             totals: vec![0.0; self.balanced.cells()],
@@ -307,6 +423,31 @@ impl Simulator {
     /// Draws one data set (μ = 0): the random effects, each cell's mean, the residuals, and
     /// from them the cell totals and the pooled within-cell sum of squares.
     pub fn draw(&self, rng: &mut ChaCha8Rng, x: &mut Scratch) {
+        // Levels of finite factors: n of the N members in each nest, by a partial
+        // Fisher-Yates shuffle (sampling without replacement).
+        for (f, sample) in self.finite.iter().zip(x.samples.iter_mut()) {
+            let members = &mut x.members[..f.population as usize];
+            for chosen in sample.chunks_exact_mut(f.levels) {
+                for (i, m) in members.iter_mut().enumerate() {
+                    *m = i as u32;
+                }
+                for (i, c) in chosen.iter_mut().enumerate() {
+                    let pick = rng.random_range(i as u32..f.population) as usize;
+                    members.swap(i, pick);
+                    *c = members[i];
+                }
+            }
+        }
+        for r in self.random.iter().filter(|r| !r.finite.is_empty()) {
+            let map = &mut x.maps[r.map_slot];
+            map.copy_from_slice(&r.map);
+            for d in &r.finite {
+                let sample = &x.samples[d.factor];
+                for (m, &p) in map.iter_mut().zip(&d.pos) {
+                    *m += d.stride * sample[p as usize];
+                }
+            }
+        }
         for r in &self.random {
             let e = &mut x.effects[r.offset..r.offset + r.size];
             for v in e.iter_mut() {
@@ -328,7 +469,12 @@ impl Simulator {
         x.cell_mean.copy_from_slice(&self.fixed_sum);
         for r in &self.random {
             let e = &x.effects[r.offset..r.offset + r.size];
-            for (m, &i) in x.cell_mean.iter_mut().zip(&r.map) {
+            let map = if r.finite.is_empty() {
+                &r.map
+            } else {
+                &x.maps[r.map_slot]
+            };
+            for (m, &i) in x.cell_mean.iter_mut().zip(map) {
                 *m += e[i as usize];
             }
         }
@@ -375,7 +521,12 @@ impl Simulator {
             Own::Random(r) => {
                 let r = &self.random[r];
                 let e = &x.effects[r.offset..r.offset + r.size];
-                for (t, &i) in x.null_totals.iter_mut().zip(&r.map) {
+                let map = if r.finite.is_empty() {
+                    &r.map
+                } else {
+                    &x.maps[r.map_slot]
+                };
+                for (t, &i) in x.null_totals.iter_mut().zip(map) {
                     *t -= reps * e[i as usize];
                 }
             }
@@ -472,6 +623,13 @@ impl Simulator {
             .flat_map(|(cell, m)| cell.iter().map(move |e| mean + m + e))
             .collect()
     }
+}
+
+fn too_many_effects() -> Error {
+    Error::invalid(
+        None,
+        "the random terms need too many effects per simulated data set (a large finite `population` counts in full): reduce the level counts or the populations",
+    )
 }
 
 /// The pattern of a fixed term's effects at a cell, before scaling (see the module notes).

@@ -343,7 +343,7 @@ fn binary_runs_in_every_format() {
     }
 }
 
-/// Without planning values, or with a finite population, simulate says why and what to do.
+/// Without planning values simulate says why and what to do; too many runs is a usage error.
 #[test]
 fn refuses_what_it_cannot_simulate() {
     let out = emsplan(&["simulate", "problems/tank-split-plot.toml"]);
@@ -352,21 +352,6 @@ fn refuses_what_it_cannot_simulate() {
     assert_eq!(err.lines().count(), 1);
     assert!(
         err.contains("problems/tank-split-plot.toml") && err.contains("[prior]"),
-        "{err}"
-    );
-
-    let dir = scratch("finite");
-    let path = dir.join("crew.toml");
-    std::fs::write(
-        &path,
-        "[layout]\nreplicates = 2\n[[factor]]\nname = \"operator\"\nkind = \"random\"\nlevels = 3\npopulation = 5\n[prior]\nresidual = 1.0\noperator = 1.0\n",
-    )
-    .unwrap();
-    let out = emsplan(&["simulate", path.to_str().unwrap()]);
-    assert_eq!(out.status.code(), Some(1));
-    let err = String::from_utf8(out.stderr).unwrap();
-    assert!(
-        err.contains("population") && err.contains("operator"),
         "{err}"
     );
 
@@ -412,4 +397,105 @@ fn shipped_data_set_is_reproduced() {
             .unwrap()
             .contains("Variance components")
     );
+}
+
+/// Random factors from finite populations (Cornfield and Tukey 1956): three operators
+/// from a crew of five, crossed with a fixed machine and random batches; and three
+/// greenhouses of six, with two benches of four in each. In every data set the levels are
+/// a fresh sample without replacement, and the effects of every term live in a finite
+/// factor are centred over its population. Under both conventions the mean squares follow
+/// the engine's expected mean squares, with their factors (1 - n/N), and the exact tests
+/// hold alpha and their power.
+#[test]
+fn finite_populations_follow_their_expected_mean_squares() {
+    let crew = |c: &str, population: &str| {
+        format!(
+            r#"
+[layout]
+replicates = 2
+convention = "{c}"
+[[factor]]
+name = "machine"
+kind = "fixed"
+levels = 2
+[[factor]]
+name = "operator"
+kind = "random"
+levels = 3
+{population}
+[[factor]]
+name = "batch"
+kind = "random"
+levels = 4
+[prior]
+residual = 1.0
+operator = 1.4
+batch = 1.0
+"machine x operator" = 1.2
+"machine x batch" = 1.0
+"operator x batch" = 1.7
+"machine x operator x batch" = 1.4
+[effect]
+machine = 0.5
+"#
+        )
+    };
+    let greenhouses = |c: &str| {
+        format!(
+            r#"
+[layout]
+replicates = 2
+convention = "{c}"
+[[factor]]
+name = "fertiliser"
+kind = "fixed"
+levels = 3
+[[factor]]
+name = "greenhouse"
+kind = "random"
+levels = 3
+population = 6
+[[factor]]
+name = "bench"
+kind = "random"
+levels = 2
+population = 4
+within = ["greenhouse"]
+[prior]
+residual = 1.0
+greenhouse = 1.4
+bench = 1.2
+"fertiliser x greenhouse" = 1.7
+"fertiliser x bench" = 1.4
+[effect]
+fertiliser = 0.8
+"#
+        )
+    };
+    for c in ["restricted", "unrestricted"] {
+        let (layout, plan) = load_text(&crew(c, "population = 5"));
+        let r = monte_carlo(&layout, &plan, 41, 20_000);
+        assert_agrees(&r, &format!("crew, {c}"));
+        // With an infinite crew E(MS[batch]) would hold 4σ²(operator x batch) in full, not
+        // (1 - 3/5) of it: 4 × (3/5) × 1.7² = 6.936 more; unrestricted, also 2σ²(machine x
+        // operator x batch) in full: 2 × (3/5) × 1.4² = 2.352 more. The simulation rules
+        // the infinite crew out.
+        let want_gap = 2.4 * 1.7f64.powi(2)
+            + if c == "unrestricted" {
+                1.2 * 1.4f64.powi(2)
+            } else {
+                0.0
+            };
+        let (inf_layout, inf_plan) = load_text(&crew(c, ""));
+        let inf = monte_carlo(&inf_layout, &inf_plan, 41, 0);
+        let b = r.terms.iter().position(|t| t.label == "batch").unwrap();
+        let gap = inf.terms[b].expected_ms - r.terms[b].expected_ms;
+        assert!((gap - want_gap).abs() < 1e-9, "{c}: {gap}");
+        let (m, se) = (r.terms[b].mean_ms.unwrap(), r.terms[b].mean_ms_se.unwrap());
+        assert!((inf.terms[b].expected_ms - m).abs() > 10.0 * se, "{c}");
+
+        let (layout, plan) = load_text(&greenhouses(c));
+        let r = monte_carlo(&layout, &plan, 42, 20_000);
+        assert_agrees(&r, &format!("greenhouses, {c}"));
+    }
 }
