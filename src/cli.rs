@@ -111,6 +111,12 @@ pub enum Command {
         /// Markdown instead of HTML, for a supplement.
         #[arg(long)]
         markdown: bool,
+        /// Add a Monte Carlo confirmation of every test with this many simulated data sets.
+        #[arg(long)]
+        runs: Option<u64>,
+        /// Seed of the Monte Carlo run.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
         #[command(flatten)]
         planning: PlanningArgs,
     },
@@ -329,11 +335,29 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             layout,
             output,
             markdown,
+            runs,
+            seed,
             planning,
         } => {
             let side = load_side(&layout, &planning)?;
-            let report =
+            let mut report =
                 crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
+            if let Some(runs) = runs {
+                if runs == 0 || runs > crate::simulate::MAX_RUNS {
+                    return Err(Error::Usage(format!(
+                        "--runs {runs}: ask for between 1 and {} data sets",
+                        crate::simulate::MAX_RUNS
+                    )));
+                }
+                let request = crate::simulate::Request {
+                    seed,
+                    runs,
+                    data: None,
+                };
+                let (mc, _) = crate::simulate::simulate(&side.layout, &side.plan, &request)
+                    .map_err(|e| e.in_file(&layout))?;
+                report.sections.push(render::report::monte_carlo_section(&mc));
+            }
             write_report(&report, output.as_deref(), markdown)
         }
     }
