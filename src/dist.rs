@@ -977,7 +977,23 @@ pub fn fixed_power(alpha: f64, df1: f64, df2: f64, nc: f64) -> f64 {
 /// power is the central upper tail at F_crit × ratio. NaN for `alpha` outside
 /// [0, 1], invalid df, or `ratio` negative or NaN.
 pub fn random_power(alpha: f64, df1: f64, df2: f64, ratio: f64) -> f64 {
-    CriticalValue::new(alpha, df1, df2).random_power(ratio)
+    random_power_beyond(f_upper_quantile(alpha, df1, df2), df1, df2, ratio)
+}
+
+/// P(F(df1, df2) > critical × ratio), for a critical value from `f_upper_quantile`.
+fn random_power_beyond(critical: f64, df1: f64, df2: f64, ratio: f64) -> f64 {
+    if critical.is_nan() || ratio.is_nan() || ratio < 0.0 {
+        return f64::NAN;
+    }
+    if critical == f64::INFINITY {
+        // alpha = 0: the test never rejects.
+        return 0.0;
+    }
+    if critical == 0.0 {
+        // alpha = 1: the test always rejects.
+        return 1.0;
+    }
+    f_sf(critical * ratio, df1, df2)
 }
 
 /// The upper-`alpha` point of F(df1, df2), computed once, so that a caller
@@ -1073,18 +1089,7 @@ impl CriticalValue {
     /// Power of the test of a random term with ratio E(MS_den)/E(MS_term): see
     /// [`random_power`].
     pub fn random_power(&self, ratio: f64) -> f64 {
-        if self.value.is_nan() || ratio.is_nan() || ratio < 0.0 {
-            return f64::NAN;
-        }
-        if self.value == f64::INFINITY {
-            // alpha = 0: the test never rejects.
-            return 0.0;
-        }
-        if self.value == 0.0 {
-            // alpha = 1: the test always rejects.
-            return 1.0;
-        }
-        f_sf(self.value * ratio, self.df1, self.df2)
+        random_power_beyond(self.value, self.df1, self.df2, ratio)
     }
 }
 
