@@ -57,7 +57,7 @@ def noncentral(x, d1, d2, nc):
 
 
 def upper_point(q, d1, d2):
-    """x with sf(x) = q, by Newton's method on log sf in log x."""
+    """x with sf(x) = q, by mpmath.findroot (secant) on log sf in log x."""
     q = mp.mpf(q)
     guess = stats.f.isf(float(q), d1, d2)
     s = mp.findroot(lambda s: mp.log(central(mp.exp(s), d1, d2)[1]) - mp.log(q), mp.log(guess))
