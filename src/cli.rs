@@ -356,7 +356,9 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 };
                 let (mc, _) = crate::simulate::simulate(&side.layout, &side.plan, &request)
                     .map_err(|e| e.in_file(&layout))?;
-                report.sections.push(render::report::monte_carlo_section(&mc));
+                report
+                    .sections
+                    .push(render::report::monte_carlo_section(&mc));
             }
             write_report(&report, output.as_deref(), markdown)
         }

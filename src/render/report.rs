@@ -341,8 +341,7 @@ pub fn monte_carlo_section(r: &crate::simulate::SimulateReport) -> (String, Stri
         .iter()
         .map(|t| {
             let test = t.test.as_ref();
-            let flags = t.ms_flag
-                || test.is_some_and(|x| x.null_flag || x.power_flag);
+            let flags = t.ms_flag || test.is_some_and(|x| x.null_flag || x.power_flag);
             vec![
                 t.label.clone(),
                 format!("{:.4}", t.expected_ms),
@@ -351,7 +350,11 @@ pub fn monte_carlo_section(r: &crate::simulate::SimulateReport) -> (String, Stri
                 test.and_then(|x| x.analytic_power)
                     .map_or("-".into(), |p| format!("{p:.3}")),
                 test.map_or("-".into(), |x| rate(&x.power)),
-                if flags { "NO: see flags".into() } else { "yes".into() },
+                if flags {
+                    "NO: see flags".into()
+                } else {
+                    "yes".into()
+                },
             ]
         })
         .collect();
