@@ -14,6 +14,7 @@ pub mod layout;
 pub mod planning;
 pub mod render;
 pub mod repair;
+pub mod search;
 pub mod spec;
 pub mod term;
 pub mod variant;

@@ -2,6 +2,7 @@
 //! text; none computes statistics.
 
 pub mod check;
+pub mod search;
 
 use comfy_table::{Table, presets};
 
