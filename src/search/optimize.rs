@@ -57,6 +57,8 @@ pub struct Optimized {
     pub screened: u64,
     /// Screened candidates rejected, by reason: budget, untestable, min_df, power.
     pub rejected: [u64; 4],
+    /// Patterns finished by enumeration after too many cuts.
+    pub fallbacks: u64,
 }
 
 /// The cheapest feasible candidate of every structure, ranked.
@@ -71,6 +73,7 @@ pub fn optimize(screens: &[Screen], problem: &Problem, top: usize) -> Optimized 
         out.best.extend(p.best);
         out.solves += p.solves;
         out.screened += p.screened;
+        out.fallbacks += p.fallbacks;
         for k in 0..4 {
             out.rejected[k] += p.rejected[k];
         }
@@ -196,6 +199,7 @@ fn optimize_structure(vi: usize, screen: &Screen, problem: &Problem) -> Optimize
         if !finished && found.is_none() {
             // Too many answers failed the non-linear checks: enumerate the pattern under
             // the best cost so far, which keeps the result exact.
+            out.fallbacks += 1;
             let e = enumerate_pattern(vi, screen, problem, &allowed, bound);
             out.screened += e.1;
             found = e.0;
