@@ -137,6 +137,17 @@ fn constraints_line(r: &SearchReport) -> String {
 }
 
 fn counts_line(r: &SearchReport) -> String {
+    if r.method == crate::search::Method::Optimize {
+        return format!(
+            "{} candidates in {} structure{}: the integer program screened {} exactly; {} structure{} with a feasible layout.",
+            r.space,
+            r.structures,
+            if r.structures == 1 { "" } else { "s" },
+            r.examined,
+            r.feasible,
+            if r.feasible == 1 { "" } else { "s" }
+        );
+    }
     format!(
         "{} candidates in {} structure{}: {} examined, {} over the budget, {} feasible.",
         r.space,
