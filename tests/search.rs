@@ -200,7 +200,10 @@ fn optimizer_agrees_with_exhaustive_enumeration() {
                     o.outcome.cost
                 );
                 let again = s.screens[o.variant].evaluate(&o.levels, &mut Criticals::default());
-                assert_eq!(again.rejection, None, "optimizer's answer infeasible:\n{text}");
+                assert_eq!(
+                    again.rejection, None,
+                    "optimizer's answer infeasible:\n{text}"
+                );
             }
             (e, o) => panic!(
                 "enumeration found {:?}, the optimizer {:?}:\n{text}",
@@ -210,7 +213,10 @@ fn optimizer_agrees_with_exhaustive_enumeration() {
         }
     }
     // The comparison must not be vacuous: most problems have a feasible layout.
-    assert!(with_best >= 80, "only {with_best} problems had a best layout");
+    assert!(
+        with_best >= 80,
+        "only {with_best} problems had a best layout"
+    );
 }
 
 /// The linearisation alone is exact: when every constraint is linear (no power target,
@@ -231,7 +237,10 @@ fn integer_program_alone_is_exact_when_constraints_are_linear() {
         assert_eq!(found.fallbacks, 0, "fallbacks:\n{text}");
         let exhaustive = enumerate(&s.screens, 1, false, &Quiet);
         assert_eq!(
-            exhaustive.top.first().map(|e| (e.outcome.cost * 1e6).round()),
+            exhaustive
+                .top
+                .first()
+                .map(|e| (e.outcome.cost * 1e6).round()),
             found.best.first().map(|e| (e.outcome.cost * 1e6).round()),
             "{text}"
         );
@@ -336,9 +345,13 @@ fn screening_figures_match_check_and_planning() {
         let t = enumerate(&s.screens, 3, true, &Quiet);
         for e in &t.top {
             let v = &s.screens[e.variant].variant;
-            let layout = Layout::new(String::new(), v.structure.clone(), e.levels.clone())
-                .expect("valid");
-            let c = cost(v.plan.cost.as_ref().expect("cost"), &layout.structure, &e.levels);
+            let layout =
+                Layout::new(String::new(), v.structure.clone(), e.levels.clone()).expect("valid");
+            let c = cost(
+                v.plan.cost.as_ref().expect("cost"),
+                &layout.structure,
+                &e.levels,
+            );
             assert!(same_cost(c.total, e.outcome.cost), "cost:\n{text}");
             let report = describe(&s, e);
             let checked_df = report
@@ -404,7 +417,10 @@ fn bread_panel_optimum_by_hand() {
         .iter()
         .find(|x| x.reason == Rejection::Untestable)
         .expect("untestable candidates");
-    assert_eq!(untestable.cheapest.structure, "assessor crossed with the rest");
+    assert_eq!(
+        untestable.cheapest.structure,
+        "assessor crossed with the rest"
+    );
     assert!(untestable.why.contains("exact_only"), "{}", untestable.why);
 }
 

@@ -106,7 +106,11 @@ fn json_follows_the_contract() {
         for key in ["untestable", "min_df", "power"] {
             assert!(r[key].is_u64(), "{p}: rejected.{key}");
         }
-        assert_eq!(examined + budget, v["space"].as_u64().expect("space"), "{p}");
+        assert_eq!(
+            examined + budget,
+            v["space"].as_u64().expect("space"),
+            "{p}"
+        );
         assert_eq!(
             v["candidates"][0]["cost"], best["cost"],
             "{p}: the best is ranked first"
@@ -226,17 +230,30 @@ fn rejected(tag: &str, text: &str, marker: Option<&str>, phrase: &str, extra: &[
     let out = run(&args);
     let stderr = String::from_utf8_lossy(&out.stderr).into_owned();
     assert_ne!(out.status.code(), Some(101), "{tag}: panic: {stderr}");
-    assert_eq!(out.status.code(), Some(1), "{tag}: exit code; stderr: {stderr}");
+    assert_eq!(
+        out.status.code(),
+        Some(1),
+        "{tag}: exit code; stderr: {stderr}"
+    );
     assert!(out.stdout.is_empty(), "{tag}: stdout on error");
-    let lines: Vec<&str> = stderr.lines().filter(|l| !l.contains("candidates in")).collect();
+    let lines: Vec<&str> = stderr
+        .lines()
+        .filter(|l| !l.contains("candidates in"))
+        .collect();
     assert_eq!(lines.len(), 1, "{tag}: one line on stderr, got {stderr:?}");
     let line = lines[0];
     let head = match marker {
         Some(m) => format!("emsplan: {p} line {}: ", line_of(text, m)),
         None => format!("emsplan: {p}: "),
     };
-    assert!(line.starts_with(&head), "{tag}: {line:?} should start {head:?}");
-    assert!(line.contains(phrase), "{tag}: {line:?} should say {phrase:?}");
+    assert!(
+        line.starts_with(&head),
+        "{tag}: {line:?} should start {head:?}"
+    );
+    assert!(
+        line.contains(phrase),
+        "{tag}: {line:?} should say {phrase:?}"
+    );
 }
 
 #[test]
@@ -255,42 +272,76 @@ fn base_problem_is_valid() {
 #[test]
 fn unknown_factor_in_levels() {
     let t = BASE.replace("chamber = [1, 4]", "chamber = [1, 4]\nbnch = [1, 3]");
-    rejected("levels-unknown", &t, Some("bnch ="), "\"bnch\" is not a factor", &[]);
+    rejected(
+        "levels-unknown",
+        &t,
+        Some("bnch ="),
+        "\"bnch\" is not a factor",
+        &[],
+    );
 }
 
 #[test]
 fn unknown_factor_in_choice() {
     let t = BASE.replace("factor = \"chamber\"", "factor = \"chambr\"");
-    rejected("choice-unknown", &t, Some("factor = \"chambr\""), "\"chambr\" is not a factor", &[]);
+    rejected(
+        "choice-unknown",
+        &t,
+        Some("factor = \"chambr\""),
+        "\"chambr\" is not a factor",
+        &[],
+    );
 }
 
 #[test]
 fn unknown_factor_in_choice_within() {
     let t = BASE.replace("[\"light\", \"cultivar\"]]", "[\"light\", \"cultivr\"]]");
-    rejected("choice-within-unknown", &t, Some("[[search.choice]]"), "\"cultivr\", which is not a factor", &[]);
+    rejected(
+        "choice-within-unknown",
+        &t,
+        Some("[[search.choice]]"),
+        "\"cultivr\", which is not a factor",
+        &[],
+    );
 }
 
 #[test]
 fn choice_with_neither_within_nor_optional() {
     let t = BASE.replace("within = [[\"light\"], [\"light\", \"cultivar\"]]\n", "");
-    rejected("choice-empty", &t, Some("[[search.choice]]"), "offers no alternative", &[]);
+    rejected(
+        "choice-empty",
+        &t,
+        Some("[[search.choice]]"),
+        "offers no alternative",
+        &[],
+    );
 }
 
 #[test]
 fn choice_nesting_a_factor_in_itself() {
     let t = BASE.replace("[\"light\", \"cultivar\"]]", "[\"light\", \"chamber\"]]");
-    rejected("choice-self", &t, Some("[[search.choice]]"), "cannot be nested in itself", &[]);
+    rejected(
+        "choice-self",
+        &t,
+        Some("[[search.choice]]"),
+        "cannot be nested in itself",
+        &[],
+    );
 }
 
 #[test]
 fn choice_making_a_cycle() {
     // cultivar within chamber, while chamber may be nested in cultivar: a cycle.
-    let t = BASE.replace(
-        "name = \"cultivar\"\nkind = \"fixed\"\nlevels = 4\n",
-        "name = \"cultivar\"\nkind = \"fixed\"\nlevels = 4\nwithin = [\"chamber\"]\n",
-    )
-    .replace("\"light x cultivar\" = 0.5\n", "")
-    .replace("must_test = [\"light\", \"light x cultivar\"]", "must_test = [\"light\"]");
+    let t = BASE
+        .replace(
+            "name = \"cultivar\"\nkind = \"fixed\"\nlevels = 4\n",
+            "name = \"cultivar\"\nkind = \"fixed\"\nlevels = 4\nwithin = [\"chamber\"]\n",
+        )
+        .replace("\"light x cultivar\" = 0.5\n", "")
+        .replace(
+            "must_test = [\"light\", \"light x cultivar\"]",
+            "must_test = [\"light\"]",
+        );
     rejected("choice-cycle", &t, Some("[[search.choice]]"), "cycle", &[]);
 }
 
@@ -313,58 +364,115 @@ fn two_choice_tables_for_one_factor() {
 #[test]
 fn empty_range() {
     let t = BASE.replace("chamber = [1, 4]", "chamber = []");
-    rejected("range-empty", &t, Some("chamber = []"), "range of two whole numbers", &[]);
+    rejected(
+        "range-empty",
+        &t,
+        Some("chamber = []"),
+        "range of two whole numbers",
+        &[],
+    );
 }
 
 #[test]
 fn range_of_three_numbers() {
     let t = BASE.replace("chamber = [1, 4]", "chamber = [1, 2, 4]");
-    rejected("range-three", &t, Some("chamber = [1, 2, 4]"), "got 3 numbers", &[]);
+    rejected(
+        "range-three",
+        &t,
+        Some("chamber = [1, 2, 4]"),
+        "got 3 numbers",
+        &[],
+    );
 }
 
 #[test]
 fn inverted_range() {
     let t = BASE.replace("chamber = [1, 4]", "chamber = [4, 1]");
-    rejected("range-inverted", &t, Some("chamber = [4, 1]"), "inverted", &[]);
+    rejected(
+        "range-inverted",
+        &t,
+        Some("chamber = [4, 1]"),
+        "inverted",
+        &[],
+    );
 }
 
 #[test]
 fn range_below_one_for_a_random_factor() {
     let t = BASE.replace("chamber = [1, 4]", "chamber = [0, 4]");
-    rejected("range-zero", &t, Some("chamber = [0, 4]"), "starts below 1", &[]);
+    rejected(
+        "range-zero",
+        &t,
+        Some("chamber = [0, 4]"),
+        "starts below 1",
+        &[],
+    );
 }
 
 /// A fixed factor with one level compares nothing (common practice; Layout::new refuses it).
 #[test]
 fn range_below_two_for_a_fixed_factor() {
     let t = BASE.replace("chamber = [1, 4]", "chamber = [1, 4]\ncultivar = [1, 5]");
-    rejected("range-fixed-one", &t, Some("cultivar = [1, 5]"), "starts below 2", &[]);
+    rejected(
+        "range-fixed-one",
+        &t,
+        Some("cultivar = [1, 5]"),
+        "starts below 2",
+        &[],
+    );
 }
 
 #[test]
 fn replicates_range_below_one() {
     let t = BASE.replace("replicates = [1, 6]", "replicates = [0, 6]");
-    rejected("range-replicates", &t, Some("replicates = [0, 6]"), "at least 1 replicate", &[]);
+    rejected(
+        "range-replicates",
+        &t,
+        Some("replicates = [0, 6]"),
+        "at least 1 replicate",
+        &[],
+    );
 }
 
 /// Levels are drawn from the population, so n ≤ N (Cornfield and Tukey 1956).
 #[test]
 fn range_beyond_the_population() {
     let t = BASE.replace("chamber = [1, 4]", "chamber = [1, 20]");
-    rejected("range-population", &t, Some("chamber = [1, 20]"), "population of 12", &[]);
+    rejected(
+        "range-population",
+        &t,
+        Some("chamber = [1, 20]"),
+        "population of 12",
+        &[],
+    );
 }
 
 #[test]
 fn must_test_term_not_in_the_layout() {
     let t = BASE.replace("must_test = [\"light\", ", "must_test = [\"moisture\", ");
-    rejected("must-unknown", &t, Some("must_test"), "\"moisture\", which is not a factor", &[]);
+    rejected(
+        "must-unknown",
+        &t,
+        Some("must_test"),
+        "\"moisture\", which is not a factor",
+        &[],
+    );
 }
 
 /// A factor nested in another is not crossed with it, so their interaction is no term.
 #[test]
 fn must_test_term_that_is_no_term() {
-    let t = BASE.replace("must_test = [\"light\", ", "must_test = [\"chamber x light\", ");
-    rejected("must-nested", &t, Some("must_test"), "cannot be crossed", &[]);
+    let t = BASE.replace(
+        "must_test = [\"light\", ",
+        "must_test = [\"chamber x light\", ",
+    );
+    rejected(
+        "must-nested",
+        &t,
+        Some("must_test"),
+        "cannot be crossed",
+        &[],
+    );
 }
 
 #[test]
@@ -376,38 +484,78 @@ fn must_test_missing() {
 #[test]
 fn budget_negative() {
     let t = BASE.replace("budget = 25000", "budget = -5");
-    rejected("budget-negative", &t, Some("budget = -5"), "finite positive number", &[]);
+    rejected(
+        "budget-negative",
+        &t,
+        Some("budget = -5"),
+        "finite positive number",
+        &[],
+    );
 }
 
 #[test]
 fn budget_zero() {
     let t = BASE.replace("budget = 25000", "budget = 0.0");
-    rejected("budget-zero", &t, Some("budget = 0.0"), "finite positive number", &[]);
+    rejected(
+        "budget-zero",
+        &t,
+        Some("budget = 0.0"),
+        "finite positive number",
+        &[],
+    );
 }
 
 #[test]
 fn budget_not_finite() {
     let t = BASE.replace("budget = 25000", "budget = inf");
-    rejected("budget-inf", &t, Some("budget = inf"), "finite positive number", &[]);
+    rejected(
+        "budget-inf",
+        &t,
+        Some("budget = inf"),
+        "finite positive number",
+        &[],
+    );
     let t = BASE.replace("budget = 25000", "budget = nan");
-    rejected("budget-nan", &t, Some("budget = nan"), "finite positive number", &[]);
+    rejected(
+        "budget-nan",
+        &t,
+        Some("budget = nan"),
+        "finite positive number",
+        &[],
+    );
 }
 
 #[test]
 fn min_df_negative() {
     let t = BASE.replace("min_df = 4", "min_df = -1");
-    rejected("min-df-negative", &t, Some("min_df = -1"), "min_df must be a finite number", &[]);
+    rejected(
+        "min-df-negative",
+        &t,
+        Some("min_df = -1"),
+        "min_df must be a finite number",
+        &[],
+    );
 }
 
 #[test]
 fn min_df_not_finite() {
     let t = BASE.replace("min_df = 4", "min_df = inf");
-    rejected("min-df-inf", &t, Some("min_df = inf"), "min_df must be a finite number", &[]);
+    rejected(
+        "min-df-inf",
+        &t,
+        Some("min_df = inf"),
+        "min_df must be a finite number",
+        &[],
+    );
 }
 
 #[test]
 fn target_power_outside_zero_one() {
-    for (tag, v) in [("power-one", "1.0"), ("power-big", "1.5"), ("power-zero", "0.0")] {
+    for (tag, v) in [
+        ("power-one", "1.0"),
+        ("power-big", "1.5"),
+        ("power-zero", "0.0"),
+    ] {
         let t = BASE.replace("target_power = 0.8", &format!("target_power = {v}"));
         rejected(tag, &t, Some("target_power ="), "between 0 and 1", &[]);
     }
@@ -416,13 +564,25 @@ fn target_power_outside_zero_one() {
 #[test]
 fn target_power_without_priors() {
     let t = BASE.replace("[prior]\nresidual = 1.0\nchamber = 0.5\n", "");
-    rejected("power-no-prior", &t, Some("target_power"), "needs a [prior] table", &[]);
+    rejected(
+        "power-no-prior",
+        &t,
+        Some("target_power"),
+        "needs a [prior] table",
+        &[],
+    );
 }
 
 #[test]
 fn target_power_without_an_effect_for_a_fixed_must_test_term() {
     let t = BASE.replace("\"light x cultivar\" = 0.5\n", "");
-    rejected("power-no-effect", &t, Some("target_power"), "add it under [effect]", &[]);
+    rejected(
+        "power-no-effect",
+        &t,
+        Some("target_power"),
+        "add it under [effect]",
+        &[],
+    );
 }
 
 #[test]
@@ -430,7 +590,13 @@ fn power_flag_without_priors() {
     let t = BASE
         .replace("[prior]\nresidual = 1.0\nchamber = 0.5\n", "")
         .replace("target_power = 0.8\n", "");
-    rejected("power-flag-no-prior", &t, None, "--power 0.9 asks for power", &["--power", "0.9"]);
+    rejected(
+        "power-flag-no-prior",
+        &t,
+        None,
+        "--power 0.9 asks for power",
+        &["--power", "0.9"],
+    );
 }
 
 #[test]

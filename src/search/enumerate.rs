@@ -104,7 +104,10 @@ impl Tally {
 
     fn note_cheapest(&mut self, r: Rejection, e: &Entry) {
         let slot = &mut self.cheapest[reason_slot(r)];
-        if slot.as_ref().is_none_or(|c| e.outcome.cost < c.outcome.cost) {
+        if slot
+            .as_ref()
+            .is_none_or(|c| e.outcome.cost < c.outcome.cost)
+        {
             *slot = Some(e.clone());
         }
     }
@@ -177,15 +180,12 @@ impl Tally {
 /// first), a candidate is kept when its power beats every cheaper one's.
 pub fn frontier(mut points: Vec<Entry>) -> Vec<Entry> {
     points.sort_by(|a, b| {
-        a.outcome
-            .cost
-            .total_cmp(&b.outcome.cost)
-            .then(
-                b.outcome
-                    .min_power
-                    .unwrap_or(-1.0)
-                    .total_cmp(&a.outcome.min_power.unwrap_or(-1.0)),
-            )
+        a.outcome.cost.total_cmp(&b.outcome.cost).then(
+            b.outcome
+                .min_power
+                .unwrap_or(-1.0)
+                .total_cmp(&a.outcome.min_power.unwrap_or(-1.0)),
+        )
     });
     let mut best = f64::NEG_INFINITY;
     let mut out = Vec::new();

@@ -74,6 +74,10 @@ pub struct Shape {
     pub denominator: Vec<(usize, f64)>,
 }
 
+/// The error terms of the must-test terms (`None`: the term is absent, or the counts
+/// overflow exact arithmetic), shared between the candidates of one pattern.
+pub type Shapes = Arc<Vec<Option<Shape>>>;
+
 /// Per-thread cache of critical values by (df1, df2 bits).
 #[derive(Default)]
 pub struct Criticals(HashMap<(u64, u64), CriticalValue>);
@@ -101,7 +105,7 @@ pub struct Screen {
     priced: Vec<(Mask, f64)>,
     /// Dimensions whose values include 1, for the error-term cache.
     one_dims: Vec<usize>,
-    cache: Option<Vec<OnceLock<Arc<Vec<Option<Shape>>>>>>,
+    cache: Option<Vec<OnceLock<Shapes>>>,
     /// σ² of each random term with a prior (0 without).
     prior_sq: Vec<f64>,
     has_priors: bool,
@@ -205,7 +209,7 @@ impl Screen {
     }
 
     /// The error terms of the must-test terms at these level counts.
-    pub fn shapes(&self, levels: &Levels) -> Arc<Vec<Option<Shape>>> {
+    pub fn shapes(&self, levels: &Levels) -> Shapes {
         match &self.cache {
             Some(cache) => {
                 let mut key = 0usize;
@@ -356,11 +360,8 @@ impl Screen {
 
         // Denominator df, then power, of each must-test term.
         let mut values: HashMap<usize, f64> = HashMap::new();
-        let mut value = |v: usize| -> f64 {
-            *values
-                .entry(v)
-                .or_insert_with(|| self.ems_value(v, levels))
-        };
+        let mut value =
+            |v: usize| -> f64 { *values.entry(v).or_insert_with(|| self.ems_value(v, levels)) };
         let mut dfs: Vec<Option<f64>> = Vec::with_capacity(tests.len());
         for &(_, shape) in &tests {
             let df2 = match shape.verdict {
@@ -381,11 +382,8 @@ impl Screen {
             .try_fold(f64::INFINITY, |m, d| d.map(|d| m.min(d)));
         if let Some(min) = self.min_df {
             // The term named is the worst: an unknown df first, else the fewest.
-            let worst = (0..dfs.len()).min_by(|&a, &b| {
-                dfs[a]
-                    .unwrap_or(-1.0)
-                    .total_cmp(&dfs[b].unwrap_or(-1.0))
-            });
+            let worst = (0..dfs.len())
+                .min_by(|&a, &b| dfs[a].unwrap_or(-1.0).total_cmp(&dfs[b].unwrap_or(-1.0)));
             if let Some(k) = worst
                 && dfs[k].is_none_or(|d| d < min - 1e-9)
             {

@@ -108,7 +108,8 @@ impl Search {
                         ),
                     ));
                 }
-                let tally = enumerate::enumerate(&self.screens, options.top, options.prune, progress);
+                let tally =
+                    enumerate::enumerate(&self.screens, options.top, options.prune, progress);
                 let relaxed = if tally.top.is_empty() && self.problem.budget.is_some() {
                     self.without_budget()?.best_by_enumeration()
                 } else {

@@ -27,9 +27,7 @@
 //! best cost found so far, so the answer stays exact. Among candidates of equal cost the
 //! program collects a few more by cuts and keeps the best by the search's ranking.
 
-use good_lp::{
-    Expression, ProblemVariables, Solution, SolverModel, Variable, microlp, variable,
-};
+use good_lp::{Expression, ProblemVariables, Solution, SolverModel, Variable, microlp, variable};
 use rayon::prelude::*;
 
 use crate::layout::Levels;
@@ -301,7 +299,10 @@ impl Builder<'_> {
         for (k, &v) in self.allowed[d0].iter().enumerate() {
             p.add_mul(c * g0.of(v), self.x[d0][k]);
         }
-        let mut upper = c * self.allowed[d0].iter().map(|&v| g0.of(v)).fold(0.0, f64::max);
+        let mut upper = c * self.allowed[d0]
+            .iter()
+            .map(|&v| g0.of(v))
+            .fold(0.0, f64::max);
         for &(d, g) in &free[1..] {
             let mut next = Expression::from(0.0);
             let mut sum = Expression::from(0.0);

@@ -154,7 +154,9 @@ impl Problem {
                 if !(v.is_finite() && v >= 0.0) {
                     return Err(Error::invalid(
                         at(d.span()),
-                        format!("[search] min_df must be a finite number of zero or more (got {v})"),
+                        format!(
+                            "[search] min_df must be a finite number of zero or more (got {v})"
+                        ),
                     ));
                 }
                 Some(v)

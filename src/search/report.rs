@@ -124,7 +124,12 @@ pub fn caution() -> String {
 }
 
 /// Builds the full report from an enumeration.
-pub fn build(search: &Search, options: &Options, tally: Tally, relaxed: Option<Entry>) -> SearchReport {
+pub fn build(
+    search: &Search,
+    options: &Options,
+    tally: Tally,
+    relaxed: Option<Entry>,
+) -> SearchReport {
     let candidates: Vec<CandidateReport> = tally.top.iter().map(|e| describe(search, e)).collect();
     let frontier_cap = 40;
     let mut notes = notes(search);
@@ -191,8 +196,7 @@ pub fn build(search: &Search, options: &Options, tally: Tally, relaxed: Option<E
 /// Builds the report of the optimizer: the best per structure, ranked; no frontier and no
 /// tally of the space (the optimizer does not visit it).
 pub fn build_optimized(search: &Search, options: &Options, found: Optimized) -> SearchReport {
-    let candidates: Vec<CandidateReport> =
-        found.best.iter().map(|e| describe(search, e)).collect();
+    let candidates: Vec<CandidateReport> = found.best.iter().map(|e| describe(search, e)).collect();
     let mut notes = notes(search);
     notes.push(format!(
         "found by the integer program ({} solves, {} candidates screened exactly): only the best of each structure is ranked, and there is no frontier or tally of the whole space; use --method enumerate for those",
@@ -242,7 +246,9 @@ fn constraints(search: &Search) -> Constraints {
 fn notes(search: &Search) -> Vec<String> {
     let mut notes = Vec::new();
     for s in &search.skipped {
-        notes.push(format!("left out of the space, as it gives no valid layout: {s}"));
+        notes.push(format!(
+            "left out of the space, as it gives no valid layout: {s}"
+        ));
     }
     notes
 }
@@ -406,7 +412,9 @@ fn why(search: &Search, r: Rejection, e: &Entry, c: &CandidateReport) -> String 
         (Rejection::Untestable, Some(t)) => format!(
             "with {layout}, {} cannot be tested: {}",
             t.label,
-            t.reason.clone().unwrap_or_else(|| "it has no error term".into())
+            t.reason
+                .clone()
+                .unwrap_or_else(|| "it has no error term".into())
         ),
         (Rejection::MinDf, Some(t)) => match t.denominator_df {
             Some(df) => format!(
@@ -463,7 +471,10 @@ fn binding(search: &Search, tally: &Tally, rejections: &[RejectionReport]) -> St
             ),
         };
     }
-    if let Some(r) = rejections.iter().find(|r| r.reason == Rejection::Untestable) {
+    if let Some(r) = rejections
+        .iter()
+        .find(|r| r.reason == Rejection::Untestable)
+    {
         return format!(
             "testability binds: no layout in the space tests every must-test term; the cheapest of them: {}",
             r.why
