@@ -6,9 +6,10 @@ use serde::{Serialize, Serializer};
 use crate::ems::{Ems, Model, Rational};
 use crate::error::Error;
 use crate::errorterm::{ErrorTerm, Verdict, denominator_text, error_terms, weight_text};
+use crate::goal::Goal;
 use crate::layout::{Convention, Kind, Layout};
 use crate::planning::{Cost, PlanningValues, cost, plan_tests};
-use crate::repair::{Repair, repairs};
+use crate::repair::{Outcome, Repair, meets, repairs};
 
 #[derive(Debug, Clone, Serialize)]
 pub struct CheckReport {
@@ -81,6 +82,10 @@ pub struct DenominatorPart {
 pub struct RepairReport {
     pub change: String,
     pub verdict: Verdict,
+    pub denominator_df: Option<f64>,
+    pub power: Option<f64>,
+    /// Cost after the change less cost before; null when the layout is not priced.
+    pub cost_change: Option<f64>,
     pub assumption: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub risk: Option<String>,
@@ -127,6 +132,17 @@ pub fn check(
     convention: Convention,
     plan: &PlanningValues,
 ) -> Result<CheckReport, Error> {
+    check_with_goal(layout, convention, plan, &Goal::default())
+}
+
+/// The check, with repairs listed for every term the goal covers that misses it
+/// (untestable, or below the goal's df or power).
+pub fn check_with_goal(
+    layout: &Layout,
+    convention: Convention,
+    plan: &PlanningValues,
+    goal: &Goal,
+) -> Result<CheckReport, Error> {
     let mut layout = layout.clone();
     layout.structure.convention = convention;
     let a = Analysis::new(&layout)?;
@@ -157,14 +173,27 @@ pub fn check(
             });
             let test = a.tests[i].as_ref().map(|e| {
                 let reason = explain(&layout, &a, i, e);
-                let repairs = if e.verdict == Verdict::Untestable {
-                    repairs(&layout, *t)
+                let outcome = Outcome {
+                    verdict: e.verdict,
+                    denominator_df: plans[i].and_then(|p| p.denominator_df).or_else(|| {
+                        (e.verdict == Verdict::Exact).then(|| a.df[e.denominator[0].0] as f64)
+                    }),
+                    power: plans[i].and_then(|p| p.power),
+                };
+                let wanted = e.verdict != Verdict::NotEstimable && goal.covers(t.live);
+                let short = wanted && !meets(goal, &outcome);
+                let repairs: Vec<RepairReport> = if short {
+                    repairs(&layout, plan, goal, t.live)
                         .iter()
                         .map(|r| repair_report(&layout, r))
                         .collect()
                 } else {
                     Vec::new()
                 };
+                let mut reason = reason;
+                if short && e.verdict.is_testable() {
+                    reason = Some(shortfall(goal, &outcome, reason));
+                }
                 if let Some(r) = &reason {
                     findings.push(finding(&labels[i], e.verdict, r, &repairs));
                 }
@@ -341,10 +370,48 @@ fn one_level_factors(layout: &Layout, live: u32) -> String {
     }
 }
 
+/// How a testable term misses the goal, in words (added to any other reason).
+fn shortfall(goal: &Goal, o: &Outcome, reason: Option<String>) -> String {
+    let mut parts = Vec::new();
+    if goal.exact_only && o.verdict != Verdict::Exact {
+        parts.push("the goal asks for an exact F test".to_string());
+    }
+    if let Some(m) = goal.min_df {
+        match o.denominator_df {
+            Some(d) if d < m => parts.push(format!(
+                "its {} denominator df are below the {} asked for",
+                crate::render::num(d),
+                m
+            )),
+            None => parts.push(format!(
+                "its denominator df are unknown without planning values, and {m} are asked for"
+            )),
+            _ => {}
+        }
+    }
+    if let Some(p) = goal.target_power {
+        match o.power {
+            Some(x) if x < p => parts.push(format!("its power {x:.2} is below the target {p}")),
+            None => parts.push(format!(
+                "its power is unknown (it needs [prior] and [effect]) and {p} is the target"
+            )),
+            _ => {}
+        }
+    }
+    let head = parts.join("; ");
+    match reason {
+        Some(r) => format!("{head}; {r}"),
+        None => head,
+    }
+}
+
 fn repair_report(layout: &Layout, r: &Repair) -> RepairReport {
     RepairReport {
-        change: r.change.describe(&layout.structure),
-        verdict: r.verdict,
+        change: r.change.describe(&layout.structure, layout),
+        verdict: r.outcome.verdict,
+        denominator_df: r.outcome.denominator_df,
+        power: r.outcome.power,
+        cost_change: r.cost_change,
         assumption: r.assumption,
         risk: r.assumption.then(|| {
             "an assumption, not a measurement: if the interaction is really there, the test is biased and its error rate is wrong".to_string()
@@ -365,16 +432,27 @@ fn finding(label: &str, verdict: Verdict, reason: &str, repairs: &[RepairReport]
     let fixes: Vec<String> = repairs
         .iter()
         .map(|r| {
-            if r.assumption {
-                format!(
-                    "{} ({} test; an assumption: if it is really there the test is biased)",
-                    r.change,
-                    r.verdict.name()
-                )
-            } else {
-                format!("{} ({} test)", r.change, r.verdict.name())
+            let mut what = format!("{} test", r.verdict.name());
+            if let Some(d) = r.denominator_df {
+                what.push_str(&format!(" on {} df", crate::render::num(d)));
             }
+            if let Some(p) = r.power {
+                what.push_str(&format!(", power {p:.2}"));
+            }
+            if let Some(c) = r.cost_change {
+                let sign = if c >= 0.0 { "+" } else { "" };
+                what.push_str(&format!(", cost {sign}{}", crate::render::num(c)));
+            }
+            if r.assumption {
+                what.push_str("; an assumption: if it is really there the test is biased");
+            }
+            format!("{} ({what})", r.change)
         })
         .collect();
-    format!("{head} It becomes testable if you {}.", fixes.join("; or "))
+    let fix = if verdict.is_testable() {
+        "It meets the goal if you"
+    } else {
+        "It becomes testable if you"
+    };
+    format!("{head} {fix} {}.", fixes.join("; or "))
 }

@@ -5,8 +5,10 @@ use std::process::ExitCode;
 
 use clap::{Parser, Subcommand, ValueEnum};
 
-use crate::check::check;
+use crate::check::check_with_goal;
+use crate::compare::{Edit, Side, apply, compare};
 use crate::error::Error;
+use crate::goal::Goal;
 use crate::layout::{Convention, Layout};
 use crate::planning::{PlanningValues, check_probability};
 use crate::render::{self, Format};
@@ -61,6 +63,67 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
+    /// Compare two layouts side by side: a second file, or the base with changes.
+    Compare {
+        /// The base layout file.
+        base: PathBuf,
+        /// Another layout file to compare with (instead of, or before, the changes).
+        other: Option<PathBuf>,
+        /// Change one thing of the base, e.g. bench.levels=3, replicates=4,
+        /// bench.within=light,cultivar, bench.kind=fixed, alpha=0.01, prior.bench=2.0.
+        #[arg(long = "set", value_name = "KEY=VALUE")]
+        set: Vec<String>,
+        /// Leave out a layer; the factors nested in it move up to its nests.
+        #[arg(long = "drop", value_name = "FACTOR")]
+        drop: Vec<String>,
+        /// Remove one unit or observation from some cells only (e.g. "light=2,chamber=3").
+        #[arg(long = "remove", value_name = "CELL")]
+        remove: Vec<String>,
+        #[arg(long, value_enum)]
+        convention: Option<ConventionOne>,
+        #[command(flatten)]
+        planning: PlanningArgs,
+        #[arg(long, value_enum, default_value = "text")]
+        format: Format,
+    },
+    /// Write a report that justifies the design: self-contained HTML, or Markdown.
+    Report {
+        /// The layout or problem file (TOML).
+        layout: PathBuf,
+        /// Write the report to this file (default: standard output). With --markdown the
+        /// figures are written beside it as NAME-*.svg.
+        #[arg(short = 'o', long = "output")]
+        output: Option<PathBuf>,
+        /// Markdown instead of HTML, for a supplement.
+        #[arg(long)]
+        markdown: bool,
+        #[command(flatten)]
+        planning: PlanningArgs,
+    },
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum ConventionOne {
+    Restricted,
+    Unrestricted,
+}
+
+impl From<ConventionOne> for Convention {
+    fn from(c: ConventionOne) -> Self {
+        match c {
+            ConventionOne::Restricted => Convention::Restricted,
+            ConventionOne::Unrestricted => Convention::Unrestricted,
+        }
+    }
+}
+
+/// Reads a layout file with its planning values and goal.
+pub fn load_side(path: &std::path::Path, args: &PlanningArgs) -> Result<Side, Error> {
+    let (layout, spec, text) = Layout::from_file(path)?;
+    let mut plan = PlanningValues::from_spec(&spec, &text, &layout).map_err(|e| e.in_file(path))?;
+    args.apply(&mut plan)?;
+    let goal = Goal::from_spec(&spec, &text, &layout).map_err(|e| e.in_file(path))?;
+    Ok(Side { layout, plan, goal })
 }
 
 /// Overrides of the file's test level and target power.
@@ -84,17 +147,6 @@ impl PlanningArgs {
         }
         Ok(())
     }
-}
-
-/// Reads a layout file with its planning values, command-line overrides applied.
-pub fn load(
-    path: &std::path::Path,
-    args: &PlanningArgs,
-) -> Result<(Layout, PlanningValues), Error> {
-    let (layout, spec, text) = Layout::from_file(path)?;
-    let mut plan = PlanningValues::from_spec(&spec, &text, &layout).map_err(|e| e.in_file(path))?;
-    args.apply(&mut plan)?;
-    Ok((layout, plan))
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
@@ -130,12 +182,12 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             planning,
             format,
         } => {
-            let (layout, plan) = load(&layout, &planning)?;
+            let Side { layout, plan, goal } = load_side(&layout, &planning)?;
             let own = layout.structure.convention;
             match convention {
                 Some(ConventionArg::Both) => {
-                    let r = check(&layout, Convention::Restricted, &plan)?;
-                    let u = check(&layout, Convention::Unrestricted, &plan)?;
+                    let r = check_with_goal(&layout, Convention::Restricted, &plan, &goal)?;
+                    let u = check_with_goal(&layout, Convention::Unrestricted, &plan, &goal)?;
                     Ok(render::check::render_both(
                         &render::check::BothReport::new(r, u),
                         format,
@@ -147,7 +199,10 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                         Some(ConventionArg::Unrestricted) => Convention::Unrestricted,
                         _ => own,
                     };
-                    Ok(render::check::render(&check(&layout, c, &plan)?, format))
+                    Ok(render::check::render(
+                        &check_with_goal(&layout, c, &plan, &goal)?,
+                        format,
+                    ))
                 }
             }
         }
@@ -185,6 +240,123 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 .map_err(|e| e.in_file(&problem))?;
             bar.finish();
             Ok(render::search::render(&report, format))
+        }
+        Command::Compare {
+            base,
+            other,
+            set,
+            drop,
+            remove,
+            convention,
+            planning,
+            format,
+        } => {
+            let base_side = load_side(&base, &planning)?;
+            let mut changes = Vec::new();
+            let mut side = match &other {
+                Some(path) => {
+                    changes.push(format!("{} instead of {}", path.display(), base.display()));
+                    load_side(path, &planning)?
+                }
+                None => base_side.clone(),
+            };
+            if other.is_none() && set.is_empty() && drop.is_empty() && remove.is_empty() {
+                return Err(Error::Usage(
+                    "compare needs something to compare with: a second file, or --set / --drop changes".into(),
+                ));
+            }
+            let mut edits: Vec<Edit> = Vec::new();
+            for s in &set {
+                edits.push(Edit::parse_set(s)?);
+            }
+            edits.extend(drop.iter().cloned().map(Edit::Drop));
+            edits.extend(remove.iter().cloned().map(Edit::Remove));
+            let mut notes = Vec::new();
+            for e in &edits {
+                let (next, more) = apply(&side, e)?;
+                side = next;
+                notes.extend(more);
+                changes.push(e.describe());
+            }
+            let comparison = compare(
+                &base_side,
+                &side,
+                changes,
+                notes,
+                convention.map(Convention::from),
+            )?;
+            Ok(render::compare::render(&comparison, format))
+        }
+        Command::Report {
+            layout,
+            output,
+            markdown,
+            planning,
+        } => {
+            let side = load_side(&layout, &planning)?;
+            let report =
+                crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
+            write_report(&report, output.as_deref(), markdown)
+        }
+    }
+}
+
+/// The command line as typed, for the report's reproduction note.
+fn command_line() -> String {
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    let quoted: Vec<String> = args
+        .iter()
+        .map(|a| {
+            if a.chars()
+                .all(|c| c.is_alphanumeric() || "-_./=,:".contains(c))
+            {
+                a.clone()
+            } else {
+                format!("'{}'", a.replace('\'', "'\\''"))
+            }
+        })
+        .collect();
+    format!("emsplan {}", quoted.join(" "))
+}
+
+/// Writes the report where asked; returns what goes to stdout.
+fn write_report(
+    report: &crate::report::Report,
+    output: Option<&std::path::Path>,
+    markdown: bool,
+) -> Result<String, Error> {
+    let write = |path: &std::path::Path, text: &str| {
+        std::fs::write(path, text).map_err(|source| Error::Io {
+            path: path.display().to_string(),
+            source,
+        })
+    };
+    match (output, markdown) {
+        (None, false) => Ok(render::report::html(report)),
+        (None, true) => {
+            eprintln!(
+                "emsplan: figures are not written without -o FILE; the Markdown links to them"
+            );
+            Ok(render::report::markdown(report, "report-").0)
+        }
+        (Some(path), false) => {
+            write(path, &render::report::html(report))?;
+            eprintln!("emsplan: wrote {}", path.display());
+            Ok(String::new())
+        }
+        (Some(path), true) => {
+            let stem = path
+                .file_stem()
+                .map(|s| s.to_string_lossy().into_owned())
+                .unwrap_or_else(|| "report".into());
+            let (text, figures) = render::report::markdown(report, &format!("{stem}-"));
+            write(path, &text)?;
+            let dir = path.parent().unwrap_or_else(|| std::path::Path::new(""));
+            for (name, svg) in figures {
+                write(&dir.join(name), &svg)?;
+            }
+            eprintln!("emsplan: wrote {} and its figures", path.display());
+            Ok(String::new())
         }
     }
 }

@@ -15,6 +15,9 @@ use crate::error::Error;
 use crate::spec::{self, ConventionSpec, KindSpec, Spec};
 use crate::term::{Mask, Term, parse_term_label};
 
+/// What emsplan says when asked about a layout with units removed.
+pub const UNBALANCED_NOT_YET: &str = "removing units from some cells only makes the layout unbalanced, and emsplan handles balanced layouts only so far (unbalanced layouts are planned); until then, compare balanced alternatives (fewer units at every level) or ask a statistician";
+
 /// At most this many factors: the model has up to 2^k - 1 terms.
 pub const MAX_FACTORS: usize = 12;
 
@@ -203,6 +206,9 @@ impl Layout {
                 "missing [layout] table: add one with at least `replicates = N`",
             )
         })?;
+        if let Some(r) = &layout_spec.remove {
+            return Err(Error::invalid(at(r.span()), UNBALANCED_NOT_YET.to_string()));
+        }
         if spec.factor.is_empty() {
             return Err(Error::invalid(
                 None,

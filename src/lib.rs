@@ -6,14 +6,17 @@
 
 pub mod check;
 pub mod cli;
+pub mod compare;
 pub mod dist;
 pub mod ems;
 pub mod error;
 pub mod errorterm;
+pub mod goal;
 pub mod layout;
 pub mod planning;
 pub mod render;
 pub mod repair;
+pub mod report;
 pub mod search;
 pub mod spec;
 pub mod term;

@@ -32,6 +32,9 @@ pub struct LayoutSpec {
     pub convention: Option<Spanned<ConventionSpec>>,
     #[serde(default)]
     pub omit: Vec<Spanned<String>>,
+    /// Units or observations missing from the balanced layout (refused until unbalanced
+    /// layouts are supported, with a message that says so).
+    pub remove: Option<Spanned<toml::Value>>,
 }
 
 #[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]

@@ -130,7 +130,7 @@ fn synthetic_test_gets_satterthwaite_df() {
 }
 
 /// Cost: overhead plus per-unit prices times the cells of each priced term (each
-/// chamber is one of 2 per light regime, 6 in all; each pot one of 72 observations).
+/// chamber is one of 3 per light regime, 9 in all; each pot one of 108 observations).
 #[test]
 fn cost_breakdown() {
     let text = std::fs::read_to_string(concat!(
@@ -140,13 +140,13 @@ fn cost_breakdown() {
     .unwrap();
     let r = run(&text);
     let c = r.cost.as_ref().expect("cost");
-    assert_eq!(c.total, 1500.0 + 6.0 * 900.0 + 72.0 * 6.0);
+    assert_eq!(c.total, 1500.0 + 9.0 * 900.0 + 108.0 * 6.0);
     let chamber = c
         .breakdown
         .iter()
         .find(|l| l.term == "chamber(light)")
         .unwrap();
-    assert_eq!(chamber.units, 6);
+    assert_eq!(chamber.units, 9);
 }
 
 /// `range = D` for a main effect: two levels D apart and the rest midway have effects

@@ -353,7 +353,7 @@ population = 10
         "mowing",
         &[
             ("residual", 1.0),
-            ("mowing x meadow", 0.6 * 3.0),
+            ("mowing x meadow", 1.8),
             ("mowing", 12.0),
         ],
     );

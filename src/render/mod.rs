@@ -2,6 +2,8 @@
 //! text; none computes statistics.
 
 pub mod check;
+pub mod compare;
+pub mod report;
 pub mod search;
 
 use comfy_table::{Table, presets};

@@ -1,0 +1,597 @@
+//! The `compare` job: two layouts side by side, term by term, with the cost of each and
+//! a verdict in words. The other layout is a second file, or the base with changes
+//! applied (`--set KEY=VALUE`, `--drop FACTOR`).
+
+use serde::Serialize;
+
+use crate::check::{CheckReport, TermReport, check_with_goal};
+use crate::error::Error;
+use crate::errorterm::Verdict;
+use crate::goal::Goal;
+use crate::layout::{Convention, Kind, Layout, UNBALANCED_NOT_YET};
+use crate::planning::{CostModel, Effect, PlanningValues, check_probability};
+use crate::render::check::tested_over;
+use crate::term::{Mask, REPLICATE, parse_term_label};
+use crate::variant::{drop_factor, set_within};
+
+/// One change to the base layout, as given on the command line.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Edit {
+    Set { key: String, value: String },
+    Drop(String),
+    Remove(String),
+}
+
+impl Edit {
+    pub fn parse_set(arg: &str) -> Result<Edit, Error> {
+        let (key, value) = arg.split_once('=').ok_or_else(|| {
+            Error::Usage(format!(
+                "--set {arg}: write KEY=VALUE, e.g. bench.levels=3 or replicates=4"
+            ))
+        })?;
+        Ok(Edit::Set {
+            key: key.trim().to_string(),
+            value: value.trim().to_string(),
+        })
+    }
+
+    pub fn describe(&self) -> String {
+        match self {
+            Edit::Set { key, value } => format!("{key} = {value}"),
+            Edit::Drop(f) => format!("without {f}"),
+            Edit::Remove(r) => format!("remove {r}"),
+        }
+    }
+}
+
+/// A layout with its planning values and goal: everything a comparison side needs.
+#[derive(Debug, Clone)]
+pub struct Side {
+    pub layout: Layout,
+    pub plan: PlanningValues,
+    pub goal: Goal,
+}
+
+/// Applies one edit. Errors name the key and say what would be accepted.
+pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
+    let mut notes = Vec::new();
+    let usage = |m: String| Error::Usage(m);
+    match edit {
+        Edit::Drop(name) => {
+            let s = &side.layout.structure;
+            let f = s.factor_index(name).ok_or_else(|| {
+                usage(format!(
+                    "--drop {name}: \"{name}\" is not a factor (known: {})",
+                    s.known_names()
+                ))
+            })?;
+            let (layout, plan, gone) = drop_factor(&side.layout, &side.plan, f)
+                .map_err(|m| usage(format!("--drop {name}: {m}")))?;
+            if !gone.is_empty() {
+                notes.push(format!(
+                    "without {name}, these planning values no longer apply: {}",
+                    gone.join(", ")
+                ));
+            }
+            let goal = Goal {
+                must_test: side
+                    .goal
+                    .must_test
+                    .iter()
+                    .filter_map(|&m| {
+                        let r = crate::variant::remap_mask(m, f);
+                        if r.is_none() {
+                            notes.push(format!(
+                                "the must-test term {} goes with {name}",
+                                crate::layout::term_of(s, m).short_label(s)
+                            ));
+                        }
+                        r
+                    })
+                    .collect(),
+                ..side.goal.clone()
+            };
+            Ok((Side { layout, plan, goal }, notes))
+        }
+        Edit::Remove(what) => Err(usage(format!("--remove {what}: {UNBALANCED_NOT_YET}"))),
+        Edit::Set { key, value } => {
+            let mut side = side.clone();
+            let bad = |m: String| usage(format!("--set {key}={value}: {m}"));
+            let whole = |v: &str| -> Result<u64, Error> {
+                v.parse::<u64>()
+                    .ok()
+                    .filter(|&n| n >= 1)
+                    .ok_or_else(|| bad(format!("\"{v}\" is not a whole number of at least 1")))
+            };
+            let size = |v: &str| -> Result<f64, Error> {
+                v.parse::<f64>()
+                    .ok()
+                    .filter(|x| x.is_finite() && *x >= 0.0)
+                    .ok_or_else(|| bad(format!("\"{v}\" is not a finite number of zero or more")))
+            };
+            let s = side.layout.structure.clone();
+            let term_key = |t: &str| -> Result<Mask, Error> {
+                parse_term_label(&s, t).map(|t| t.live).map_err(bad)
+            };
+            let mut layout = side.layout.clone();
+            match key.split_once('.') {
+                None => match key.as_str() {
+                    "replicates" => layout.levels.replicates = whole(value)?,
+                    "alpha" => {
+                        side.plan.alpha = value
+                            .parse::<f64>()
+                            .map_err(|_| bad("alpha must be a number between 0 and 1".into()))
+                            .and_then(|a| check_probability(a, "alpha").map_err(bad))?
+                    }
+                    "convention" => {
+                        layout.structure.convention = match value.as_str() {
+                            "restricted" => Convention::Restricted,
+                            "unrestricted" => Convention::Unrestricted,
+                            _ => {
+                                return Err(bad(
+                                    "the convention is \"restricted\" or \"unrestricted\"".into(),
+                                ));
+                            }
+                        }
+                    }
+                    "omit" => {
+                        let mut omitted = Vec::new();
+                        for t in value.split(';').map(str::trim).filter(|t| !t.is_empty()) {
+                            let live = term_key(t)?;
+                            if live.count_ones() < 2 || live & REPLICATE != 0 {
+                                return Err(bad(format!("\"{t}\" is not an interaction")));
+                            }
+                            omitted.push(live);
+                        }
+                        layout.structure.omitted = omitted;
+                    }
+                    _ => {
+                        return Err(bad(format!(
+                            "unknown key \"{key}\" (known: replicates, alpha, convention, omit, FACTOR.levels, FACTOR.kind, FACTOR.within, FACTOR.population, prior.TERM, effect.TERM, cost.TERM, cost.overhead)"
+                        )));
+                    }
+                },
+                Some(("prior", term)) => {
+                    let live = term_key(term)?;
+                    let t = crate::layout::term_of(&s, live);
+                    if live != REPLICATE && t.kind(&s) == Kind::Fixed {
+                        return Err(bad(format!(
+                            "\"{term}\" is a fixed term: set effect.{term} instead"
+                        )));
+                    }
+                    if side.plan.priors.is_empty() && live != REPLICATE {
+                        return Err(bad(
+                            "the layout has no [prior] table: set prior.residual first".into(),
+                        ));
+                    }
+                    side.plan.priors.insert(live, size(value)?);
+                }
+                Some(("effect", term)) => {
+                    let live = term_key(term)?;
+                    let t = crate::layout::term_of(&s, live);
+                    if live == REPLICATE || t.kind(&s) == Kind::Random {
+                        return Err(bad(format!(
+                            "\"{term}\" is a random term: set prior.{term} instead"
+                        )));
+                    }
+                    side.plan
+                        .effects
+                        .insert(live, Effect::RootMeanSquare(size(value)?));
+                }
+                Some(("cost", what)) => {
+                    let price = size(value)?;
+                    let model = side.plan.cost.get_or_insert_with(|| CostModel {
+                        overhead: 0.0,
+                        per_unit: Vec::new(),
+                    });
+                    if what == "overhead" {
+                        model.overhead = price;
+                    } else {
+                        let live = term_key(what)?;
+                        model.per_unit.retain(|(m, _)| *m != live);
+                        model.per_unit.push((live, price));
+                    }
+                }
+                Some((factor, field)) => {
+                    let f = s.factor_index(factor).ok_or_else(|| {
+                        bad(format!(
+                            "\"{factor}\" is not a factor (known: {})",
+                            s.known_names()
+                        ))
+                    })?;
+                    match field {
+                        "levels" => layout.levels.per_factor[f] = whole(value)?,
+                        "kind" => {
+                            let kind = match value.as_str() {
+                                "fixed" => Kind::Fixed,
+                                "random" => Kind::Random,
+                                _ => return Err(bad("the kind is \"fixed\" or \"random\"".into())),
+                            };
+                            layout.structure.factors[f].kind = kind;
+                            if kind == Kind::Fixed {
+                                layout.structure.factors[f].population = None;
+                            }
+                            notes.extend(reconcile_kinds(&mut side.plan, &layout));
+                        }
+                        "within" => {
+                            let mut within: Mask = 0;
+                            for w in value.split(',').map(str::trim).filter(|w| !w.is_empty()) {
+                                let j = s.factor_index(w).ok_or_else(|| {
+                                    bad(format!(
+                                        "\"{w}\" is not a factor (known: {})",
+                                        s.known_names()
+                                    ))
+                                })?;
+                                within |= 1 << j;
+                            }
+                            layout = set_within(&layout, f, within).map_err(bad)?;
+                        }
+                        "population" => {
+                            layout.structure.factors[f].population = if value == "none" {
+                                None
+                            } else {
+                                if layout.structure.factors[f].kind == Kind::Fixed {
+                                    return Err(bad(format!(
+                                        "\"{factor}\" is fixed, so it has no population"
+                                    )));
+                                }
+                                Some(whole(value)?)
+                            };
+                        }
+                        _ => {
+                            return Err(bad(format!(
+                                "unknown field \"{field}\" of factor \"{factor}\" (known: levels, kind, within, population)"
+                            )));
+                        }
+                    }
+                }
+            }
+            // Rebuild through validation, so a change cannot leave an invalid layout.
+            let mut factors = layout.structure.factors.clone();
+            for fac in &mut factors {
+                fac.ancestors = 0;
+            }
+            let structure = crate::layout::Structure::new(
+                factors,
+                layout.structure.omitted.clone(),
+                layout.structure.convention,
+            )
+            .map_err(bad)?;
+            side.layout =
+                Layout::new(layout.name.clone(), structure, layout.levels.clone()).map_err(bad)?;
+            Ok((side, notes))
+        }
+    }
+}
+
+/// After a change of kind, priors of terms that became fixed and effects of terms that
+/// became random no longer apply; drop them and say so.
+fn reconcile_kinds(plan: &mut PlanningValues, layout: &Layout) -> Vec<String> {
+    let s = &layout.structure;
+    let mut notes = Vec::new();
+    let label = |m: Mask| crate::layout::term_of(s, m).short_label(s);
+    plan.priors.retain(|&m, _| {
+        let keep = m == REPLICATE || crate::layout::term_of(s, m).kind(s) == Kind::Random;
+        if !keep {
+            notes.push(format!(
+                "{} is now fixed: its prior no longer applies (give an effect with --set effect.{}=...)",
+                label(m),
+                label(m)
+            ));
+        }
+        keep
+    });
+    plan.effects.retain(|&m, _| {
+        let keep = crate::layout::term_of(s, m).kind(s) == Kind::Fixed;
+        if !keep {
+            notes.push(format!(
+                "{} is now random: its effect no longer applies (give a standard deviation with --set prior.{}=...)",
+                label(m),
+                label(m)
+            ));
+        }
+        keep
+    });
+    notes
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Status {
+    Same,
+    Weaker,
+    Stronger,
+    Lost,
+    Gained,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct SideTest {
+    pub label: String,
+    pub verdict: Option<Verdict>,
+    pub tested_over: Option<String>,
+    pub df: u64,
+    pub denominator_df: Option<f64>,
+    pub power: Option<f64>,
+    pub min_detectable: Option<f64>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct TermComparison {
+    pub label: String,
+    pub base: Option<SideTest>,
+    pub other: Option<SideTest>,
+    pub status: Status,
+    pub error_term_changed: bool,
+    /// Whether the goal (the must-test terms, or every term) covers it.
+    pub must_test: bool,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct CostComparison {
+    pub base: Option<f64>,
+    pub other: Option<f64>,
+    pub difference: Option<f64>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Comparison {
+    pub base: CheckReport,
+    pub other: CheckReport,
+    pub changes: Vec<String>,
+    pub notes: Vec<String>,
+    pub terms: Vec<TermComparison>,
+    pub cost: CostComparison,
+    pub verdict: String,
+}
+
+/// Compares two sides under an optional convention override.
+pub fn compare(
+    base: &Side,
+    other: &Side,
+    changes: Vec<String>,
+    notes: Vec<String>,
+    convention: Option<Convention>,
+) -> Result<Comparison, Error> {
+    let run = |side: &Side| {
+        let c = convention.unwrap_or(side.layout.structure.convention);
+        check_with_goal(&side.layout, c, &side.plan, &side.goal)
+    };
+    let b = run(base)?;
+    let o = run(other)?;
+    let key = |t: &TermReport| -> Vec<String> {
+        let mut k = t.live.clone();
+        k.sort();
+        if t.residual {
+            k.push("residual".into());
+        }
+        k
+    };
+    let side_test = |t: &TermReport| SideTest {
+        label: t.label.clone(),
+        verdict: t.test.as_ref().map(|x| x.verdict),
+        tested_over: t.test.as_ref().map(tested_over),
+        df: t.df,
+        denominator_df: t.test.as_ref().and_then(|x| x.denominator_df),
+        power: t.test.as_ref().and_then(|x| x.power),
+        min_detectable: t.test.as_ref().and_then(|x| x.min_detectable),
+    };
+    let covers = |side: &Side, t: &TermReport| -> bool {
+        !t.residual && {
+            let live = side
+                .layout
+                .structure
+                .factors
+                .iter()
+                .enumerate()
+                .filter(|(_, f)| t.live.contains(&f.name))
+                .fold(0u32, |m, (i, _)| m | (1 << i));
+            side.goal.covers(live)
+        }
+    };
+    let mut terms: Vec<TermComparison> = Vec::new();
+    for t in &b.terms {
+        let matching = o.terms.iter().find(|u| key(u) == key(t));
+        terms.push(judge(
+            t.label.clone(),
+            Some(side_test(t)),
+            matching.map(side_test),
+            covers(base, t) || matching.is_some_and(|u| covers(other, u)),
+        ));
+    }
+    for u in &o.terms {
+        if !b.terms.iter().any(|t| key(t) == key(u)) {
+            terms.push(judge(
+                u.label.clone(),
+                None,
+                Some(side_test(u)),
+                covers(other, u),
+            ));
+        }
+    }
+    let total = |r: &CheckReport| r.cost.as_ref().map(|c| c.total);
+    let cost = CostComparison {
+        base: total(&b),
+        other: total(&o),
+        difference: total(&b).zip(total(&o)).map(|(x, y)| y - x),
+    };
+    let verdict = verdict_text(&changes, &terms, &cost);
+    Ok(Comparison {
+        base: b,
+        other: o,
+        changes,
+        notes,
+        terms,
+        cost,
+        verdict,
+    })
+}
+
+fn testable(t: &Option<SideTest>) -> bool {
+    t.as_ref()
+        .and_then(|x| x.verdict)
+        .is_some_and(|v| v.is_testable())
+}
+
+fn judge(
+    label: String,
+    base: Option<SideTest>,
+    other: Option<SideTest>,
+    must_test: bool,
+) -> TermComparison {
+    let error_term_changed = match (&base, &other) {
+        (Some(b), Some(o)) => b.tested_over != o.tested_over,
+        _ => true,
+    };
+    let status = match (testable(&base), testable(&other)) {
+        (true, false) => Status::Lost,
+        (false, true) => Status::Gained,
+        (false, false) => Status::Same,
+        (true, true) => {
+            let (b, o) = (
+                base.as_ref().unwrap_or_else(|| unreachable!()),
+                other.as_ref().unwrap_or_else(|| unreachable!()),
+            );
+            let by = |x: Option<f64>, y: Option<f64>| -> Option<std::cmp::Ordering> {
+                match (x, y) {
+                    (Some(x), Some(y)) if (x - y).abs() > 1e-9 * x.abs().max(1.0) => {
+                        x.partial_cmp(&y)
+                    }
+                    _ => None,
+                }
+            };
+            let exact = |v: Option<Verdict>| u8::from(v == Some(Verdict::Exact));
+            let order = by(o.power, b.power)
+                .or_else(|| by(o.denominator_df, b.denominator_df))
+                .or_else(|| match exact(o.verdict).cmp(&exact(b.verdict)) {
+                    std::cmp::Ordering::Equal => None,
+                    other => Some(other),
+                });
+            match order {
+                Some(std::cmp::Ordering::Greater) => Status::Stronger,
+                Some(std::cmp::Ordering::Less) => Status::Weaker,
+                _ => Status::Same,
+            }
+        }
+    };
+    TermComparison {
+        label,
+        base,
+        other,
+        status,
+        error_term_changed,
+        must_test,
+    }
+}
+
+fn df_text(x: Option<f64>) -> String {
+    x.map_or("unknown".into(), crate::render::num)
+}
+
+/// The one-paragraph verdict: what the change costs or saves, what stays testable, and
+/// what gets weaker or stronger among the terms the goal covers.
+fn verdict_text(changes: &[String], terms: &[TermComparison], cost: &CostComparison) -> String {
+    let what = if changes.is_empty() {
+        "The other layout".to_string()
+    } else {
+        format!("The change ({})", changes.join(", "))
+    };
+    let money = match cost.difference {
+        Some(d) if d < 0.0 => format!("saves {}", crate::render::num(-d)),
+        Some(d) if d > 0.0 => format!("costs {} more", crate::render::num(d)),
+        Some(_) => "costs the same".into(),
+        None => "has no price (no [cost] table)".into(),
+    };
+    let focus: Vec<&TermComparison> = terms.iter().filter(|t| t.must_test).collect();
+    let lost: Vec<&str> = focus
+        .iter()
+        .filter(|t| t.status == Status::Lost)
+        .map(|t| t.label.as_str())
+        .collect();
+    let gained: Vec<&str> = focus
+        .iter()
+        .filter(|t| t.status == Status::Gained)
+        .map(|t| t.label.as_str())
+        .collect();
+    let all_testable = focus.iter().all(|t| testable(&t.other));
+    let mut sentence = format!("{what} {money}");
+    if lost.is_empty() {
+        if all_testable {
+            sentence.push_str(" and keeps every term that matters testable");
+        } else {
+            sentence.push_str(" and loses no test");
+        }
+    } else {
+        sentence.push_str(&format!(
+            ", but {} can no longer be tested",
+            lost.join(", ")
+        ));
+    }
+    if !gained.is_empty() {
+        sentence.push_str(&format!("; {} becomes testable", gained.join(", ")));
+    }
+    let change_of = |t: &TermComparison| -> Option<String> {
+        let (b, o) = (t.base.as_ref()?, t.other.as_ref()?);
+        let mut parts = Vec::new();
+        if b.denominator_df != o.denominator_df {
+            parts.push(format!(
+                "denominator df from {} to {}",
+                df_text(b.denominator_df),
+                df_text(o.denominator_df)
+            ));
+        }
+        if let (Some(x), Some(y)) = (b.power, o.power)
+            && (x - y).abs() > 0.005
+        {
+            parts.push(format!("power from {x:.2} to {y:.2}"));
+        }
+        if t.error_term_changed {
+            parts.push(format!(
+                "error term {} instead of {}",
+                o.tested_over.as_deref().unwrap_or("none"),
+                b.tested_over.as_deref().unwrap_or("none")
+            ));
+        }
+        (!parts.is_empty()).then(|| parts.join(", "))
+    };
+    let weaker: Vec<String> = focus
+        .iter()
+        .filter(|t| t.status == Status::Weaker)
+        .filter_map(|t| change_of(t).map(|c| format!("the {} test gets weaker ({c})", t.label)))
+        .collect();
+    let stronger: Vec<String> = focus
+        .iter()
+        .filter(|t| t.status == Status::Stronger)
+        .filter_map(|t| change_of(t).map(|c| format!("the {} test gets stronger ({c})", t.label)))
+        .collect();
+    let moved: Vec<String> = focus
+        .iter()
+        .filter(|t| {
+            t.status == Status::Same
+                && t.error_term_changed
+                && testable(&t.base)
+                && testable(&t.other)
+        })
+        .filter_map(|t| {
+            let (b, o) = (t.base.as_ref()?, t.other.as_ref()?);
+            Some(format!(
+                "{} is tested over {} instead of {}",
+                t.label,
+                o.tested_over.as_deref().unwrap_or("none"),
+                b.tested_over.as_deref().unwrap_or("none")
+            ))
+        })
+        .collect();
+    if !weaker.is_empty() {
+        sentence.push_str(&format!(", but {}", weaker.join("; ")));
+    }
+    if !stronger.is_empty() {
+        let joiner = if weaker.is_empty() { ", and " } else { "; " };
+        sentence.push_str(&format!("{joiner}{}", stronger.join("; ")));
+    }
+    if !moved.is_empty() {
+        sentence.push_str(&format!("; {}", moved.join("; ")));
+    }
+    sentence.push('.');
+    sentence
+}
