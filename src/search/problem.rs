@@ -5,10 +5,11 @@
 //! point the search does not re-check any of it.
 
 use crate::error::Error;
+use crate::goal::Goal;
 use crate::layout::{Kind, Layout};
 use crate::planning::{PlanningValues, check_probability};
 use crate::spec::{self, Spec};
-use crate::term::{Mask, parse_term_label};
+use crate::term::Mask;
 
 /// Enumerations larger than this stop before they start, unless `--max-candidates` says
 /// otherwise.
@@ -109,25 +110,20 @@ impl Problem {
             }
         };
 
+        // The goal (must-test terms, min_df, target_power, exact_only) is read as `check`
+        // and `compare` read it; the search adds what a search needs on top.
+        let goal = Goal::from_spec(spec, text, &base)?;
         if search.must_test.is_empty() {
             return Err(Error::invalid(
                 None,
                 "[search] must_test is empty or missing: name the terms the experiment must be able to test, e.g. must_test = [\"light\"]",
             ));
         }
-        let mut must_test = Vec::new();
-        for m in &search.must_test {
+        let mut must_test: Vec<MustTest> = Vec::new();
+        for (m, &live) in search.must_test.iter().zip(&goal.must_test) {
             let line = at(m.span());
-            let label = m.get_ref().trim().to_string();
-            let term = parse_term_label(s, &label)
-                .map_err(|e| Error::invalid(line, format!("[search] must_test: {e}")))?;
-            if term.is_residual() {
-                return Err(Error::invalid(
-                    line,
-                    "[search] must_test: \"residual\" is what other terms are tested over, not a term with a test of its own",
-                ));
-            }
-            if s.is_omitted(term.live) {
+            let label = m.get_ref().trim();
+            if s.is_omitted(live) {
                 return Err(Error::invalid(
                     line,
                     format!(
@@ -135,42 +131,22 @@ impl Problem {
                     ),
                 ));
             }
-            if must_test.iter().any(|t: &MustTest| t.live == term.live) {
+            if must_test.iter().any(|t| t.live == live) {
                 return Err(Error::invalid(
                     line,
                     format!("[search] must_test: \"{label}\" is listed twice"),
                 ));
             }
             must_test.push(MustTest {
-                label: term.short_label(s),
-                live: term.live,
+                label: crate::layout::term_of(s, live).short_label(s),
+                live,
             });
         }
-
-        let min_df = match &search.min_df {
-            None => None,
-            Some(d) => {
-                let v = *d.get_ref();
-                if !(v.is_finite() && v >= 0.0) {
-                    return Err(Error::invalid(
-                        at(d.span()),
-                        format!(
-                            "[search] min_df must be a finite number of zero or more (got {v})"
-                        ),
-                    ));
-                }
-                Some(v)
-            }
-        };
+        let min_df = goal.min_df;
 
         let (target_power, power_line) = match (power, &search.target_power) {
             (Some(p), _) => (Some(p), None),
-            (None, Some(t)) => {
-                let line = at(t.span());
-                let v = check_probability(*t.get_ref(), "[search] target_power")
-                    .map_err(|m| Error::invalid(line, m))?;
-                (Some(v), line)
-            }
+            (None, Some(t)) => (goal.target_power, at(t.span())),
             (None, None) => (None, None),
         };
         if let Some(p) = target_power {
@@ -393,7 +369,7 @@ impl Problem {
             budget,
             must_test,
             min_df,
-            exact_only: search.exact_only.unwrap_or(false),
+            exact_only: goal.exact_only,
             target_power,
             ranges,
             replicates,
