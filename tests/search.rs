@@ -468,3 +468,145 @@ fn optimizer_matches_enumeration_on_shipped_problems() {
         assert_eq!(e.description, o.description);
     }
 }
+
+/// The rejection (and its sentence) of the cheapest candidate rejected for `reason`.
+fn rejection(r: &emsplan::search::SearchReport, reason: Rejection) -> (u64, String) {
+    let x = r
+        .rejections
+        .iter()
+        .find(|x| x.reason == reason)
+        .unwrap_or_else(|| panic!("no {reason:?} rejection"));
+    (x.count, x.why.clone())
+}
+
+/// Every reason a candidate can be turned down for, each counted and explained. The
+/// expected reasons are facts of the designs: one chamber per regime confounds the chamber
+/// variance with light (pseudoreplication; Hurlbert 1984, Ecological Monographs
+/// 54:187-211); two days give recipe x day only 2 df; exact_only refuses the quasi-F test
+/// of two crossed random factors.
+#[test]
+fn every_rejection_reason_is_counted_and_explained() {
+    let chambers = search(CHAMBERS)
+        .run(&Options::default(), &Quiet)
+        .expect("runs");
+    let (n, why) = rejection(&chambers, Rejection::Untestable);
+    assert!(n > 0 && why.contains("chamber(light) has 0 df"), "{why}");
+    let (n, why) = rejection(&chambers, Rejection::MinDf);
+    assert!(n > 0 && why.contains("denominator df (min_df 4)"), "{why}");
+    let (n, why) = rejection(&chambers, Rejection::Power);
+    assert!(n > 0 && why.contains("(target 0.8)"), "{why}");
+
+    let bread = search(BREAD).run(&Options::default(), &Quiet).expect("runs");
+    let (n, why) = rejection(&bread, Rejection::Budget);
+    assert!(n > 0 && why.contains("over the budget of 6000"), "{why}");
+    let (_, why) = rejection(&bread, Rejection::Untestable);
+    assert!(why.contains("exact_only"), "{why}");
+    assert_eq!(bread.rejected.budget, n);
+}
+
+/// A problem whose must-test terms stop existing in some structures.
+const LOST: &str = r#"[layout]
+replicates = 2
+[[factor]]
+name = "light"
+kind = "fixed"
+levels = 2
+[[factor]]
+name = "bench"
+kind = "random"
+levels = 2
+within = ["light"]
+[[factor]]
+name = "cultivar"
+kind = "fixed"
+levels = 3
+[[factor]]
+name = "tray"
+kind = "random"
+levels = 2
+within = ["bench"]
+[cost]
+[cost.per_unit]
+bench = 50
+tray = 5
+residual = 1
+[search]
+must_test = ["cultivar x bench", "tray"]
+[search.levels]
+bench = [2, 3]
+[[search.choice]]
+factor = "bench"
+within = [["light"], ["light", "cultivar"]]
+[[search.choice]]
+factor = "tray"
+optional = true
+"#;
+
+/// A must-test term whose factor is left out, or whose factors are no longer crossed,
+/// makes the candidate untestable, and the reason says which.
+#[test]
+fn must_test_terms_that_stop_existing_are_untestable_with_a_reason() {
+    let s = search(LOST);
+    assert_eq!(s.screens.len(), 4);
+    let mut reasons = Vec::new();
+    for screen in &s.screens {
+        for m in &screen.must {
+            if let Err(why) = m {
+                reasons.push(why.clone());
+            }
+        }
+    }
+    assert!(
+        reasons.iter().any(|r| r == "tray is not in this layout, because tray is left out"),
+        "{reasons:?}"
+    );
+    assert!(
+        reasons
+            .iter()
+            .any(|r| r.contains("bench is nested in cultivar, so they are not crossed")),
+        "{reasons:?}"
+    );
+    let r = s.run(&Options::default(), &Quiet).expect("runs");
+    // Only the structure that keeps the tray and crosses bench with cultivar is feasible.
+    let best = r.best.expect("best");
+    assert_eq!(best.structure, "bench within light");
+    assert!(best.left_out.is_empty());
+    assert_eq!(r.rejected.untestable, 3 * 2);
+}
+
+/// Without [prior], a synthetic test's Satterthwaite df are unknown, so it fails min_df,
+/// and the sentence says why. Two crossed random factors with a fixed one give the
+/// classical quasi-F test of the fixed factor.
+#[test]
+fn synthetic_test_without_priors_fails_min_df_with_a_reason() {
+    let text = r#"[layout]
+replicates = 2
+[[factor]]
+name = "recipe"
+kind = "fixed"
+levels = 3
+[[factor]]
+name = "day"
+kind = "random"
+levels = 3
+[[factor]]
+name = "assessor"
+kind = "random"
+levels = 3
+[cost]
+[cost.per_unit]
+day = 10
+assessor = 10
+[search]
+must_test = ["recipe"]
+min_df = 2
+[search.levels]
+day = [2, 3]
+"#;
+    let r = search(text).run(&Options::default(), &Quiet).expect("runs");
+    assert!(r.best.is_none());
+    let (n, why) = rejection(&r, Rejection::MinDf);
+    assert_eq!(n, 2);
+    assert!(why.contains("unknown without a [prior] table"), "{why}");
+    assert!(r.binding.expect("binding").contains("min_df binds"));
+}
