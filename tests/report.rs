@@ -60,9 +60,16 @@ fn html_report_for_every_problem() {
             "The tests that matter",
             "Planning values and reproduction",
         ] {
-            assert!(headings.iter().any(|h| h == want), "{}: no section {want}", p.display());
+            assert!(
+                headings.iter().any(|h| h == want),
+                "{}: no section {want}",
+                p.display()
+            );
         }
-        let svgs: Vec<_> = doc.descendants().filter(|n| n.has_tag_name("svg")).collect();
+        let svgs: Vec<_> = doc
+            .descendants()
+            .filter(|n| n.has_tag_name("svg"))
+            .collect();
         assert!(!svgs.is_empty(), "{}: no figure", p.display());
         for s in svgs {
             let w: f64 = s.attribute("width").unwrap().parse().unwrap();
@@ -76,7 +83,11 @@ fn html_report_for_every_problem() {
         assert!(html.contains("emsplan report"));
         // No scripts, no network.
         assert!(!html.contains("<script"));
-        assert!(!html.contains("http://") || html.matches("http://").count() == html.matches("http://www.w3.org/2000/svg").count());
+        assert!(
+            !html.contains("http://")
+                || html.matches("http://").count()
+                    == html.matches("http://www.w3.org/2000/svg").count()
+        );
     }
 }
 
@@ -85,8 +96,13 @@ fn html_report_for_every_problem() {
 fn power_curves_for_planned_terms() {
     let p = Path::new(env!("CARGO_MANIFEST_DIR")).join("problems/growth-chambers.toml");
     let (_, html, _) = report(&p, &[]);
-    assert!(html.matches("Power of the ").count() >= 5, "one curve per testable term");
-    assert!(html.contains("Under the unrestricted convention these terms would be tested differently"));
+    assert!(
+        html.matches("Power of the ").count() >= 5,
+        "one curve per testable term"
+    );
+    assert!(
+        html.contains("Under the unrestricted convention these terms would be tested differently")
+    );
 }
 
 #[test]
@@ -107,7 +123,8 @@ fn markdown_report_writes_its_figures() {
             .collect();
         assert!(!links.is_empty());
         for l in links {
-            let svg = std::fs::read_to_string(dir.join(l)).unwrap_or_else(|_| panic!("missing figure {l}"));
+            let svg = std::fs::read_to_string(dir.join(l))
+                .unwrap_or_else(|_| panic!("missing figure {l}"));
             roxmltree::Document::parse(&svg).unwrap_or_else(|e| panic!("{l}: {e}"));
         }
     }
@@ -129,7 +146,10 @@ fn figures_render_in_a_browser() {
         let (_, html, _) = report(&p, &[]);
         let probe = "<script>document.addEventListener('DOMContentLoaded',function(){var r=[];document.querySelectorAll('svg').forEach(function(s){var b=s.getBoundingClientRect();r.push(b.width+'x'+b.height);});document.body.setAttribute('data-figure-sizes',r.join(';'));});</script></body>";
         let probed = html.replace("</body>", probe);
-        let dir = scratch(&format!("browser-{}", p.file_stem().unwrap().to_str().unwrap()));
+        let dir = scratch(&format!(
+            "browser-{}",
+            p.file_stem().unwrap().to_str().unwrap()
+        ));
         let file = dir.join("probe.html");
         std::fs::write(&file, probed).unwrap();
         let out = Command::new(browser)

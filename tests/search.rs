@@ -496,7 +496,9 @@ fn every_rejection_reason_is_counted_and_explained() {
     let (n, why) = rejection(&chambers, Rejection::Power);
     assert!(n > 0 && why.contains("(target 0.8)"), "{why}");
 
-    let bread = search(BREAD).run(&Options::default(), &Quiet).expect("runs");
+    let bread = search(BREAD)
+        .run(&Options::default(), &Quiet)
+        .expect("runs");
     let (n, why) = rejection(&bread, Rejection::Budget);
     assert!(n > 0 && why.contains("over the budget of 6000"), "{why}");
     let (_, why) = rejection(&bread, Rejection::Untestable);
@@ -557,7 +559,9 @@ fn must_test_terms_that_stop_existing_are_untestable_with_a_reason() {
         }
     }
     assert!(
-        reasons.iter().any(|r| r == "tray is not in this layout, because tray is left out"),
+        reasons
+            .iter()
+            .any(|r| r == "tray is not in this layout, because tray is left out"),
         "{reasons:?}"
     );
     assert!(

@@ -308,10 +308,10 @@ impl Screen {
                 continue;
             }
             let mut c = 1.0;
-            for j in crate::ems::bits(e.multiply) {
+            for j in set_bits(e.multiply) {
                 c *= count(j);
             }
-            for j in crate::ems::bits(e.finite) {
+            for j in set_bits(e.finite) {
                 let big_n = self.variant.structure.factors[j as usize]
                     .population
                     .unwrap_or(0) as f64;
@@ -359,9 +359,16 @@ impl Screen {
         }
 
         // Denominator df, then power, of each must-test term.
-        let mut values: HashMap<usize, f64> = HashMap::new();
-        let mut value =
-            |v: usize| -> f64 { *values.entry(v).or_insert_with(|| self.ems_value(v, levels)) };
+        // E(MS) values computed so far (a handful per candidate: a short list beats a map).
+        let mut values: Vec<(usize, f64)> = Vec::with_capacity(8);
+        let mut value = |v: usize| -> f64 {
+            if let Some(&(_, x)) = values.iter().find(|(u, _)| *u == v) {
+                return x;
+            }
+            let x = self.ems_value(v, levels);
+            values.push((v, x));
+            x
+        };
         let mut dfs: Vec<Option<f64>> = Vec::with_capacity(tests.len());
         for &(_, shape) in &tests {
             let df2 = match shape.verdict {
@@ -432,6 +439,18 @@ impl Screen {
         }
         out
     }
+}
+
+/// Indices of the set bits of a mask, lowest first.
+fn set_bits(mut mask: Mask) -> impl Iterator<Item = u32> {
+    std::iter::from_fn(move || {
+        if mask == 0 {
+            return None;
+        }
+        let j = mask.trailing_zeros();
+        mask &= mask - 1;
+        Some(j)
+    })
 }
 
 /// A must-test term's index in a structure's model, or why it is not a term there.
