@@ -101,7 +101,7 @@ fn growing_spaces(c: &mut Criterion) {
             b.iter(|| enumerate(&s.screens, 1, true, &Quiet))
         });
         g.bench_with_input(BenchmarkId::new("optimize", space), &s, |b, s| {
-            b.iter(|| optimize(&s.screens, &s.problem, 1))
+            b.iter(|| optimize(&s.screens, &s.problem, 1, u64::MAX).expect("bounded"))
         });
     }
     g.finish();

@@ -188,7 +188,7 @@ fn optimizer_agrees_with_exhaustive_enumeration() {
     let mut with_best = 0;
     for (text, s) in &problems {
         let exhaustive = enumerate(&s.screens, 1, false, &Quiet);
-        let found = optimize(&s.screens, &s.problem, 1);
+        let found = optimize(&s.screens, &s.problem, 1, u64::MAX).expect("bounded");
         match (exhaustive.top.first(), found.best.first()) {
             (None, None) => {}
             (Some(e), Some(o)) => {
@@ -231,7 +231,7 @@ fn integer_program_alone_is_exact_when_constraints_are_linear() {
             continue;
         }
         linear += 1;
-        let found = optimize(&s.screens, &s.problem, 1);
+        let found = optimize(&s.screens, &s.problem, 1, u64::MAX).expect("bounded");
         assert_eq!(found.rejected[0], 0, "budget cuts:\n{text}");
         assert_eq!(found.rejected[2], 0, "min_df cuts:\n{text}");
         assert_eq!(found.fallbacks, 0, "fallbacks:\n{text}");

@@ -647,3 +647,25 @@ fn bad_command_line_values_are_usage_errors() {
         assert_eq!(out.status.code(), Some(2), "{args:?}");
     }
 }
+
+/// The optimizer finishes by enumeration where its answers keep failing the power target,
+/// and that enumeration is bounded by --max-candidates too.
+#[test]
+fn optimizer_fallback_is_bounded_by_the_limit() {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("benches/search-million.toml");
+    let p = path.to_str().expect("path");
+    let out = run(&[
+        "search",
+        p,
+        "--method",
+        "optimize",
+        "--max-candidates",
+        "100",
+    ]);
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(1), "{stderr}");
+    let last = stderr.lines().last().expect("a message");
+    assert!(last.starts_with(&format!("emsplan: {p}: ")), "{last}");
+    assert!(last.contains("more than the limit of 100"), "{last}");
+    assert!(out.stdout.is_empty());
+}

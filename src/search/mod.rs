@@ -118,7 +118,13 @@ impl Search {
                 Ok(report::build(self, options, tally, relaxed))
             }
             Method::Optimize => {
-                let found = optimize::optimize(&self.screens, &self.problem, options.top);
+                let found = optimize::optimize(
+                    &self.screens,
+                    &self.problem,
+                    options.top,
+                    options.max_candidates,
+                )
+                .map_err(|m| Error::invalid(None, m))?;
                 Ok(report::build_optimized(self, options, found))
             }
         }

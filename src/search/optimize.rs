@@ -59,13 +59,19 @@ pub struct Optimized {
     pub fallbacks: u64,
 }
 
-/// The cheapest feasible candidate of every structure, ranked.
-pub fn optimize(screens: &[Screen], problem: &Problem, top: usize) -> Optimized {
+/// The cheapest feasible candidate of every structure, ranked. `limit` bounds the
+/// patterns finished by enumeration: one larger than that is an error that says so.
+pub fn optimize(
+    screens: &[Screen],
+    problem: &Problem,
+    top: usize,
+    limit: u64,
+) -> Result<Optimized, String> {
     let per: Vec<Optimized> = screens
         .par_iter()
         .enumerate()
-        .map(|(vi, screen)| optimize_structure(vi, screen, problem))
-        .collect();
+        .map(|(vi, screen)| optimize_structure(vi, screen, problem, limit))
+        .collect::<Result<_, String>>()?;
     let mut out = Optimized::default();
     for p in per {
         out.best.extend(p.best);
@@ -78,7 +84,7 @@ pub fn optimize(screens: &[Screen], problem: &Problem, top: usize) -> Optimized 
     }
     out.best.sort_by_key(|e| rank_key(&e.outcome));
     out.best.truncate(top.max(1));
-    out
+    Ok(out)
 }
 
 fn slot(r: Rejection) -> usize {
@@ -115,7 +121,12 @@ pub fn patterns(variant: &Variant) -> Vec<Vec<Vec<u64>>> {
     out
 }
 
-fn optimize_structure(vi: usize, screen: &Screen, problem: &Problem) -> Optimized {
+fn optimize_structure(
+    vi: usize,
+    screen: &Screen,
+    problem: &Problem,
+    limit: u64,
+) -> Result<Optimized, String> {
     let mut out = Optimized::default();
     let mut best: Option<Entry> = None;
     let mut criticals = Criticals::default();
@@ -198,6 +209,12 @@ fn optimize_structure(vi: usize, screen: &Screen, problem: &Problem) -> Optimize
             // Too many answers failed the non-linear checks: enumerate the pattern under
             // the best cost so far, which keeps the result exact.
             out.fallbacks += 1;
+            let size: u128 = allowed.iter().map(|a| a.len() as u128).product();
+            if size > limit as u128 {
+                return Err(format!(
+                    "the integer program's answers kept failing the non-linear checks (Satterthwaite df or power) in a part of the space of {size} candidates, more than the limit of {limit} to finish by enumeration: narrow the ranges under [search.levels], or raise the limit with --max-candidates"
+                ));
+            }
             let e = enumerate_pattern(vi, screen, problem, &allowed, bound);
             out.screened += e.1;
             found = e.0;
@@ -211,7 +228,7 @@ fn optimize_structure(vi: usize, screen: &Screen, problem: &Problem) -> Optimize
         }
     }
     out.best.extend(best);
-    out
+    Ok(out)
 }
 
 /// Pruned enumeration of one pattern of one structure, under `bound`.
