@@ -211,7 +211,7 @@ fn body(r: &SearchReport, table: Table, heading: fn(&str) -> String, bullet: &st
         out.push_str(&table(&FRONTIER_HEADER, frontier_rows(r)));
         if r.frontier.len() > FRONTIER_ROWS {
             out.push_str(&format!(
-                "({} more points in --format json)\n",
+                "\n({} more points in --format json)\n",
                 r.frontier.len() - FRONTIER_ROWS
             ));
         }
