@@ -45,6 +45,10 @@ fn random_problem(rng: &mut ChaCha8Rng) -> String {
             "[[factor]]\nname = \"{name}\"\nkind = \"{}\"\nlevels = {levels}\n",
             if fixed { "fixed" } else { "random" }
         ));
+        // Now and then a finite population, no smaller than any range below reaches.
+        if !fixed && rng.random_bool(0.15) {
+            t.push_str(&format!("population = {}\n", rng.random_range(5..=7)));
+        }
         let w = (i > 0 && rng.random_bool(0.35)).then(|| rng.random_range(0..i));
         if let Some(j) = w {
             t.push_str(&format!("within = [\"{}\"]\n", names[j]));

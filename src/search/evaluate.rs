@@ -176,6 +176,12 @@ impl Screen {
         }
     }
 
+    /// Whether error terms are shared within a pattern of one-level dimensions (no
+    /// factor has a finite population).
+    pub fn patterns_fix_error_terms(&self) -> bool {
+        self.cache.is_some()
+    }
+
     pub fn overhead(&self) -> f64 {
         self.overhead
     }

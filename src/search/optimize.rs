@@ -26,6 +26,9 @@
 //! After a fixed number of cuts the pattern is finished by pruned enumeration under the
 //! best cost found so far, so the answer stays exact. Among candidates of equal cost the
 //! program collects a few more by cuts and keeps the best by the search's ranking.
+//!
+//! With a finite population the coefficients carry (1 - n/N), error terms may change
+//! with the level counts inside a pattern, and such a structure is enumerated instead.
 
 use good_lp::{Expression, ProblemVariables, Solution, SolverModel, Variable, microlp, variable};
 use rayon::prelude::*;
@@ -57,6 +60,8 @@ pub struct Optimized {
     pub rejected: [u64; 4],
     /// Patterns finished by enumeration after too many cuts.
     pub fallbacks: u64,
+    /// Structures enumerated whole, for a finite population.
+    pub enumerated: u64,
 }
 
 /// The cheapest feasible candidate of every structure, ranked. `limit` bounds the
@@ -78,6 +83,7 @@ pub fn optimize(
         out.solves += p.solves;
         out.screened += p.screened;
         out.fallbacks += p.fallbacks;
+        out.enumerated += p.enumerated;
         for k in 0..4 {
             out.rejected[k] += p.rejected[k];
         }
@@ -130,6 +136,23 @@ fn optimize_structure(
     let mut out = Optimized::default();
     let mut best: Option<Entry> = None;
     let mut criticals = Criticals::default();
+    if !screen.patterns_fix_error_terms() {
+        // A finite population puts (1 - n/N) in the coefficients, so error terms can
+        // change with the level counts within a pattern: enumerate the structure.
+        let v = &screen.variant;
+        let all: Vec<Vec<u64>> = v.dims.iter().map(|d| d.values.clone()).collect();
+        let size = v.size();
+        if size > limit as u128 {
+            return Err(format!(
+                "a structure with a finite population holds {size} candidates, which the integer program cannot take (its error terms change with the level counts) and which is more than the limit of {limit} to enumerate: narrow the ranges under [search.levels], or raise the limit with --max-candidates"
+            ));
+        }
+        out.enumerated += 1;
+        let (found, screened) = enumerate_pattern(vi, screen, problem, &all, problem.budget);
+        out.screened += screened;
+        out.best.extend(found);
+        return Ok(out);
+    }
     for allowed in patterns(&screen.variant) {
         let levels = at(&screen.variant, &allowed, &[0; 16][..allowed.len()]);
         let shapes = screen.shapes(&levels);
