@@ -77,6 +77,31 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
+    /// Search for the cheapest layout whose must-test terms are testable, with enough
+    /// denominator df and power, within the budget (a layout file with a [search] table).
+    Search {
+        /// The problem file (TOML).
+        problem: PathBuf,
+        /// Candidates in the ranked table.
+        #[arg(long, default_value_t = 10)]
+        top: usize,
+        /// Stop before enumerating a space larger than this.
+        #[arg(long, default_value_t = crate::search::DEFAULT_MAX_CANDIDATES)]
+        max_candidates: u64,
+        /// `enumerate` lists every candidate (ranking, frontier, rejections);
+        /// `optimize` finds the best of each structure by integer programming.
+        #[arg(long, value_enum, default_value = "enumerate")]
+        method: crate::search::Method,
+        /// Level of every test (overrides `alpha` in the file; default 0.05).
+        #[arg(long)]
+        alpha: Option<f64>,
+        /// Power target of every must-test term (overrides `target_power`); minimum
+        /// detectable effects are solved for it.
+        #[arg(long)]
+        power: Option<f64>,
+        #[arg(long, value_enum, default_value = "text")]
+        format: Format,
+    },
     /// Compare two layouts side by side: a second file, or the base with changes.
     Compare {
         /// The base layout file.
@@ -285,6 +310,41 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
             Ok(render::analyze::render(&report, format))
         }
+        Command::Search {
+            problem,
+            top,
+            max_candidates,
+            method,
+            alpha,
+            power,
+            format,
+        } => {
+            use crate::search::{Options, Problem, Search};
+            if top == 0 {
+                return Err(Error::Usage("--top must be at least 1".into()));
+            }
+            let p = Problem::from_file(&problem, alpha, power)?;
+            let search = Search::new(p).map_err(|e| e.in_file(&problem))?;
+            let space = search.space();
+            eprintln!(
+                "emsplan: {} holds {space} candidates in {} structure{}",
+                problem.display(),
+                search.screens.len(),
+                if search.screens.len() == 1 { "" } else { "s" }
+            );
+            let options = Options {
+                top,
+                max_candidates,
+                method,
+                ..Options::default()
+            };
+            let bar = Bar::new(space.min(u64::MAX as u128) as u64);
+            let report = search
+                .run(&options, &bar)
+                .map_err(|e| e.in_file(&problem))?;
+            bar.finish();
+            Ok(render::search::render(&report, format))
+        }
         Command::Compare {
             base,
             other,
@@ -422,5 +482,57 @@ fn write_report(
             eprintln!("emsplan: wrote {} and its figures", path.display());
             Ok(String::new())
         }
+    }
+}
+
+/// A progress bar on stderr, shown only when stderr is a terminal and the search has
+/// run for more than half a second.
+struct Bar {
+    start: std::time::Instant,
+    total: u64,
+    done: std::sync::atomic::AtomicU64,
+    tty: bool,
+    bar: std::sync::OnceLock<indicatif::ProgressBar>,
+}
+
+impl Bar {
+    fn new(total: u64) -> Bar {
+        use std::io::IsTerminal;
+        Bar {
+            start: std::time::Instant::now(),
+            total,
+            done: Default::default(),
+            tty: std::io::stderr().is_terminal(),
+            bar: std::sync::OnceLock::new(),
+        }
+    }
+
+    fn finish(&self) {
+        if let Some(b) = self.bar.get() {
+            b.finish_and_clear();
+        }
+    }
+}
+
+impl crate::search::Progress for Bar {
+    fn advance(&self, n: u64) {
+        use std::sync::atomic::Ordering;
+        let done = self.done.fetch_add(n, Ordering::Relaxed) + n;
+        if !self.tty || self.start.elapsed() < std::time::Duration::from_millis(500) {
+            return;
+        }
+        let bar = self.bar.get_or_init(|| {
+            let b = indicatif::ProgressBar::with_draw_target(
+                Some(self.total),
+                indicatif::ProgressDrawTarget::stderr(),
+            );
+            if let Ok(style) = indicatif::ProgressStyle::with_template(
+                "{bar:40} {pos}/{len} candidates ({eta} left)",
+            ) {
+                b.set_style(style);
+            }
+            b
+        });
+        bar.set_position(done);
     }
 }

@@ -20,6 +20,7 @@ pub mod render;
 pub mod repair;
 pub mod report;
 pub mod simulate;
+pub mod search;
 pub mod spec;
 pub mod term;
 pub mod variant;

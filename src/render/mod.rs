@@ -6,6 +6,7 @@ pub mod check;
 pub mod compare;
 pub mod report;
 pub mod simulate;
+pub mod search;
 
 use comfy_table::{Table, presets};
 
