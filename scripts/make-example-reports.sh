@@ -6,3 +6,4 @@ cargo build --release --quiet
 bin=target/release/emsplan
 "$bin" report problems/growth-chambers.toml -o docs/examples/growth-chambers-report.html
 "$bin" report problems/growth-chambers.toml --markdown -o docs/examples/growth-chambers-report.md
+"$bin" report problems/search-chamber-power.toml --runs 2000 --seed 11 -o docs/examples/search-chamber-power-report.html

@@ -402,6 +402,15 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             let side = load_side(&layout, &planning)?;
             let mut report =
                 crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
+            if crate::spec::read(&layout)?.0.search.is_some() {
+                use crate::search::{Options, Problem, Search};
+                let p = Problem::from_file(&layout, planning.alpha, planning.power)?;
+                let search = Search::new(p).map_err(|e| e.in_file(&layout))?;
+                let found = search
+                    .run(&Options::default(), &crate::search::Quiet)
+                    .map_err(|e| e.in_file(&layout))?;
+                report.sections.push(render::report::search_section(&found));
+            }
             if let Some(runs) = runs {
                 if runs == 0 || runs > crate::simulate::MAX_RUNS {
                     return Err(Error::Usage(format!(

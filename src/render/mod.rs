@@ -5,8 +5,8 @@ pub mod analyze;
 pub mod check;
 pub mod compare;
 pub mod report;
-pub mod simulate;
 pub mod search;
+pub mod simulate;
 
 use comfy_table::{Table, presets};
 

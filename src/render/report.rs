@@ -388,3 +388,136 @@ pub fn monte_carlo_section(r: &crate::simulate::SimulateReport) -> (String, Stri
     }
     ("Monte Carlo confirmation".into(), html, md)
 }
+
+/// The design search as a report section: the alternatives considered, the
+/// cost-versus-power frontier, and why the cheaper alternatives were rejected.
+pub fn search_section(s: &crate::search::SearchReport) -> (String, String, String) {
+    let mut html = String::new();
+    let mut md = String::new();
+    let intro = format!(
+        "The search examined {} of the {} candidate layouts in {} structure{}; {} met every constraint.",
+        s.examined,
+        s.space,
+        s.structures,
+        if s.structures == 1 { "" } else { "s" },
+        s.feasible
+    );
+    let _ = writeln!(html, "<p>{}</p>", esc(&intro));
+    let _ = writeln!(md, "{intro}\n");
+    match &s.best {
+        Some(b) => {
+            let line = format!("Chosen: {}.", b.description);
+            let _ = writeln!(html, "<p><strong>{}</strong></p>", esc(&line));
+            let _ = writeln!(md, "**{line}**\n");
+        }
+        None => {
+            let line = format!(
+                "No candidate met every constraint. {}",
+                s.binding.clone().unwrap_or_default()
+            );
+            let _ = writeln!(html, "<p><strong>{}</strong></p>", esc(&line));
+            let _ = writeln!(md, "**{line}**\n");
+        }
+    }
+    let header = [
+        "rank",
+        "layout",
+        "cost",
+        "smallest den. df",
+        "smallest power",
+    ];
+    let rows: Vec<Vec<String>> = s
+        .candidates
+        .iter()
+        .enumerate()
+        .map(|(i, c)| {
+            vec![
+                (i + 1).to_string(),
+                c.description.clone(),
+                num(c.cost),
+                df_opt(c.smallest_df),
+                opt(c.smallest_power, 3),
+            ]
+        })
+        .collect();
+    if !rows.is_empty() {
+        html.push_str("<h3>Alternatives considered</h3>\n<table>\n<tr>");
+        for h in header {
+            let _ = write!(html, "<th>{h}</th>");
+        }
+        html.push_str("</tr>\n");
+        for row in &rows {
+            html.push_str("<tr>");
+            for c in row {
+                let _ = write!(html, "<td>{}</td>", esc(c));
+            }
+            html.push_str("</tr>\n");
+        }
+        html.push_str("</table>\n");
+        let _ = writeln!(
+            md,
+            "### Alternatives considered\n\n{}",
+            super::markdown_table(&header, rows)
+        );
+    }
+    let points: Vec<(f64, f64)> = s
+        .frontier
+        .iter()
+        .filter_map(|c| Some((c.cost, c.smallest_power?)))
+        .collect();
+    if points.len() >= 2 {
+        let svg = crate::report::svg::chart(
+            "Cost against power: the frontier",
+            "cost",
+            "smallest power of the must-test terms",
+            &[crate::report::svg::Series {
+                label: "Pareto-optimal layouts".into(),
+                points,
+                dash: "",
+                markers: true,
+            }],
+            Some((0.0, 1.0)),
+            &s.constraints
+                .target_power
+                .map(|p| vec![(p, "target")])
+                .unwrap_or_default(),
+        );
+        let _ = writeln!(
+            html,
+            "<h3>The cost of more power</h3>\n<figure>{svg}<figcaption>Each point is a layout no other layout beats on both cost and power.</figcaption></figure>"
+        );
+        let _ = writeln!(
+            md,
+            "### The cost of more power\n\nThe frontier (each layout no other beats on both cost and power):\n"
+        );
+        for c in &s.frontier {
+            let _ = writeln!(
+                md,
+                "- {}: cost {}, smallest power {}",
+                c.description,
+                num(c.cost),
+                opt(c.smallest_power, 3)
+            );
+        }
+        md.push('\n');
+    }
+    if !s.rejections.is_empty() {
+        html.push_str("<h3>Why the cheaper alternatives were rejected</h3>\n<ul>\n");
+        md.push_str("### Why the cheaper alternatives were rejected\n\n");
+        for r in &s.rejections {
+            let line = format!(
+                "{} candidate{} rejected ({}); the cheapest, at {}: {}",
+                r.count,
+                if r.count == 1 { "" } else { "s" },
+                format!("{:?}", r.reason).to_lowercase(),
+                num(r.cheapest.cost),
+                r.why
+            );
+            let _ = writeln!(html, "<li>{}</li>", esc(&line));
+            let _ = writeln!(md, "- {line}");
+        }
+        html.push_str("</ul>\n");
+        md.push('\n');
+    }
+    ("The design search".into(), html, md)
+}
