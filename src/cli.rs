@@ -38,6 +38,45 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
+    /// Simulate a layout at its planning values: dummy data, and a Monte Carlo check of
+    /// the expected mean squares, error rates and power of the planned tests.
+    Simulate {
+        /// The layout file (TOML), with a [prior] table.
+        layout: PathBuf,
+        /// Seed of the random draws: the same seed gives the same output everywhere.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Number of simulated data sets (0: only write --data).
+        #[arg(long, default_value_t = 2000)]
+        runs: u64,
+        /// Write one dummy data set (CSV, long format) to this file.
+        #[arg(long)]
+        data: Option<PathBuf>,
+        /// Grand mean of the dummy data set (default 0).
+        #[arg(long, default_value_t = 0.0, allow_negative_numbers = true)]
+        mean: f64,
+        /// Number nested levels across nests (bench1..bench6) instead of within each nest.
+        #[arg(long)]
+        unique_labels: bool,
+        /// Level of every test (overrides `alpha` in the file; default 0.05).
+        #[arg(long)]
+        alpha: Option<f64>,
+        #[arg(long, value_enum, default_value = "text")]
+        format: Format,
+    },
+    /// Analyze balanced data: the ANOVA with each term over its planned error term,
+    /// variance components by the method of moments, and the means of the fixed terms.
+    Analyze {
+        /// The layout file (TOML) the experiment was run to.
+        layout: PathBuf,
+        /// The data (CSV, long format): a column of level labels per factor and a response.
+        data: PathBuf,
+        /// The response column (default: the only column that is not a factor, or `response`).
+        #[arg(long)]
+        response: Option<String>,
+        #[arg(long, value_enum, default_value = "text")]
+        format: Format,
+    },
     /// Search for the cheapest layout whose must-test terms are testable, with enough
     /// denominator df and power, within the budget (a layout file with a [search] table).
     Search {
@@ -97,6 +136,12 @@ pub enum Command {
         /// Markdown instead of HTML, for a supplement.
         #[arg(long)]
         markdown: bool,
+        /// Add a Monte Carlo confirmation of every test with this many simulated data sets.
+        #[arg(long)]
+        runs: Option<u64>,
+        /// Seed of the Monte Carlo run.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
         #[command(flatten)]
         planning: PlanningArgs,
     },
@@ -206,6 +251,65 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 }
             }
         }
+        Command::Simulate {
+            layout: layout_path,
+            seed,
+            runs,
+            data,
+            mean,
+            unique_labels,
+            alpha,
+            format,
+        } => {
+            if runs > crate::simulate::MAX_RUNS {
+                return Err(Error::Usage(format!(
+                    "--runs {runs} is more than {} data sets: ask for fewer",
+                    crate::simulate::MAX_RUNS
+                )));
+            }
+            if !mean.is_finite() {
+                return Err(Error::Usage(format!(
+                    "--mean {mean} is not a finite number"
+                )));
+            }
+            let args = PlanningArgs { alpha, power: None };
+            let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
+            let request = crate::simulate::Request {
+                seed,
+                runs,
+                data: data.as_ref().map(|p| crate::simulate::DataRequest {
+                    path: p.display().to_string(),
+                    mean,
+                    unique_labels,
+                }),
+            };
+            let (report, set) = crate::simulate::simulate(&layout, &plan, &request)
+                .map_err(|e| e.in_file(&layout_path))?;
+            if let (Some(path), Some(set)) = (&data, &set) {
+                std::fs::write(path, render::simulate::data_csv(set)).map_err(|source| {
+                    Error::Io {
+                        path: path.display().to_string(),
+                        source,
+                    }
+                })?;
+            }
+            Ok(render::simulate::render(&report, format))
+        }
+        Command::Analyze {
+            layout: layout_path,
+            data,
+            response,
+            format,
+        } => {
+            let args = PlanningArgs {
+                alpha: None,
+                power: None,
+            };
+            let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
+            let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
+            let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
+            Ok(render::analyze::render(&report, format))
+        }
         Command::Search {
             problem,
             top,
@@ -291,11 +395,31 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             layout,
             output,
             markdown,
+            runs,
+            seed,
             planning,
         } => {
             let side = load_side(&layout, &planning)?;
-            let report =
+            let mut report =
                 crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
+            if let Some(runs) = runs {
+                if runs == 0 || runs > crate::simulate::MAX_RUNS {
+                    return Err(Error::Usage(format!(
+                        "--runs {runs}: ask for between 1 and {} data sets",
+                        crate::simulate::MAX_RUNS
+                    )));
+                }
+                let request = crate::simulate::Request {
+                    seed,
+                    runs,
+                    data: None,
+                };
+                let (mc, _) = crate::simulate::simulate(&side.layout, &side.plan, &request)
+                    .map_err(|e| e.in_file(&layout))?;
+                report
+                    .sections
+                    .push(render::report::monte_carlo_section(&mc));
+            }
             write_report(&report, output.as_deref(), markdown)
         }
     }

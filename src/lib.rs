@@ -4,6 +4,8 @@
 //! `term` and `ems` (the symbolic model, then numbers) -> `errorterm` (how each term is
 //! tested) -> the jobs (`check`, ...) -> `render`. `cli` is a thin shell over them.
 
+pub mod analyze;
+pub mod balanced;
 pub mod check;
 pub mod cli;
 pub mod compare;
@@ -17,6 +19,7 @@ pub mod planning;
 pub mod render;
 pub mod repair;
 pub mod report;
+pub mod simulate;
 pub mod search;
 pub mod spec;
 pub mod term;

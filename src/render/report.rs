@@ -319,3 +319,72 @@ pub fn markdown(r: &Report, figure_prefix: &str) -> (String, Vec<(String, String
     );
     (m, figures)
 }
+
+/// The Monte Carlo confirmation as a report section: (heading, HTML, Markdown).
+pub fn monte_carlo_section(r: &crate::simulate::SimulateReport) -> (String, String, String) {
+    let header = [
+        "term",
+        "E(MS)",
+        "mean simulated MS",
+        "rejections under the null",
+        "analytic power",
+        "simulated power",
+        "agrees?",
+    ];
+    let rate = |x: &Option<crate::simulate::Rate>| {
+        x.as_ref().map_or("-".to_string(), |r| {
+            format!("{:.3} [{:.3}, {:.3}]", r.rate, r.low, r.high)
+        })
+    };
+    let rows: Vec<Vec<String>> = r
+        .terms
+        .iter()
+        .map(|t| {
+            let test = t.test.as_ref();
+            let flags = t.ms_flag || test.is_some_and(|x| x.null_flag || x.power_flag);
+            vec![
+                t.label.clone(),
+                format!("{:.4}", t.expected_ms),
+                t.mean_ms.map_or("-".into(), |m| format!("{m:.4}")),
+                test.map_or("-".into(), |x| rate(&x.null)),
+                test.and_then(|x| x.analytic_power)
+                    .map_or("-".into(), |p| format!("{p:.3}")),
+                test.map_or("-".into(), |x| rate(&x.power)),
+                if flags {
+                    "NO: see flags".into()
+                } else {
+                    "yes".into()
+                },
+            ]
+        })
+        .collect();
+    let intro = format!(
+        "{} simulated data sets (seed {}), under the {} convention; rejection rates at alpha = {} with {:.0}% Wilson score intervals. Under the null each term's own component is set to zero, so its rate should be near alpha; at the planning values it should be near the analytic power.",
+        r.runs,
+        r.seed,
+        r.convention.name(),
+        r.alpha,
+        100.0 * r.confidence
+    );
+    let mut html = format!("<p>{}</p>\n<table>\n<tr>", esc(&intro));
+    for h in header {
+        let _ = write!(html, "<th>{}</th>", esc(h));
+    }
+    html.push_str("</tr>\n");
+    for row in &rows {
+        html.push_str("<tr>");
+        for c in row {
+            let _ = write!(html, "<td>{}</td>", esc(c));
+        }
+        html.push_str("</tr>\n");
+    }
+    html.push_str("</table>\n");
+    for n in &r.notes {
+        let _ = writeln!(html, "<p>Note: {}</p>", esc(n));
+    }
+    let mut md = format!("{intro}\n\n{}", super::markdown_table(&header, rows));
+    for n in &r.notes {
+        let _ = write!(md, "\nNote: {n}\n");
+    }
+    ("Monte Carlo confirmation".into(), html, md)
+}
