@@ -2,7 +2,9 @@
 //!
 //! - `million`: a problem of 1,056,000 candidates (benches/search-million.toml: four
 //!   structures, five searched dimensions, a power target and a budget), by pruned
-//!   enumeration and by the integer program. The target: under 10 s on a 2-core machine.
+//!   enumeration and by the integer program, and by enumeration with the budget removed
+//!   (nothing pruned: every candidate screened). The target: under 10 s on a 2-core
+//!   machine.
 //! - `growing`: the optimizer against enumeration (the searches alone, without the
 //!   report) on spaces that grow with the width k of every level range, with linear
 //!   constraints only (min_df, no budget to prune by), to find where the optimizer
@@ -87,6 +89,17 @@ fn million(c: &mut Criterion) {
             b.iter(|| s.run(&options(method), &Quiet).expect("runs"))
         });
     }
+    // The same problem with no budget: nothing is pruned, every candidate is screened
+    // (error terms, df and two powers each).
+    let unbudgeted = search(&text.replace("budget = 60000\n", ""));
+    assert!(unbudgeted.problem.budget.is_none());
+    g.bench_function("enumerate_no_budget", |b| {
+        b.iter(|| {
+            unbudgeted
+                .run(&options(Method::Enumerate), &Quiet)
+                .expect("runs")
+        })
+    });
     g.finish();
 }
 

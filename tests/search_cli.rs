@@ -669,3 +669,34 @@ fn optimizer_fallback_is_bounded_by_the_limit() {
     assert!(last.contains("more than the limit of 100"), "{last}");
     assert!(out.stdout.is_empty());
 }
+
+fn best_cost(args: &[&str]) -> (f64, serde_json::Value) {
+    let out = run(args);
+    assert_eq!(
+        out.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("JSON");
+    (v["best"]["cost"].as_f64().expect("a best layout"), v)
+}
+
+/// --power replaces the file's power target and --alpha its level; a stricter target or
+/// a smaller alpha can only make the cheapest feasible layout dearer (power falls as
+/// alpha falls, for the same layout: common practice).
+#[test]
+fn power_and_alpha_flags_change_the_search() {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("problems/search-chamber-power.toml");
+    let p = path.to_str().expect("path");
+    let (base, _) = best_cost(&["search", p, "--format", "json"]);
+    let (strict, v) = best_cost(&["search", p, "--format", "json", "--power", "0.95"]);
+    assert_eq!(v["constraints"]["target_power"], 0.95);
+    assert!(strict > base, "{strict} vs {base}");
+    for t in v["best"]["tests"].as_array().expect("tests") {
+        assert!(t["power"].as_f64().expect("power") >= 0.95);
+    }
+    let (small_alpha, v) = best_cost(&["search", p, "--format", "json", "--alpha", "0.01"]);
+    assert_eq!(v["constraints"]["alpha"], 0.01);
+    assert!(small_alpha >= base, "{small_alpha} vs {base}");
+}
