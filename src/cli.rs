@@ -143,8 +143,14 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             planning,
             format,
         } => {
-            let Side { layout, plan, goal } = load_side(&layout, &planning)?;
+            let path = layout;
+            let Side { layout, plan, goal } = load_side(&path, &planning)?;
             let own = layout.structure.convention;
+            // Errors of the check itself (a convention an unbalanced layout does not
+            // have) name the file.
+            let check_with_goal = |l: &Layout, c: Convention, p: &PlanningValues, g: &Goal| {
+                check_with_goal(l, c, p, g).map_err(|e| e.in_file(&path))
+            };
             match convention {
                 Some(ConventionArg::Both) => {
                     let r = check_with_goal(&layout, Convention::Restricted, &plan, &goal)?;

@@ -18,4 +18,5 @@ pub mod render;
 pub mod repair;
 pub mod spec;
 pub mod term;
+pub mod unbalanced;
 pub mod variant;
