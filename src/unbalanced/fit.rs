@@ -6,10 +6,13 @@
 //! that subspace, A = QQ' and SS = ||Q'y||².
 //!
 //! - Sequential (type I): the terms are fitted one after another; A_k = P_k - P_{k-1}, with
-//!   P_k the projection onto the columns of the intercept and the first k terms' incidence
-//!   matrices. Its df are the rank increase.
-//! - Type III: each term adjusted for every other; A_T = P_X - P_{X without T}, with the
-//!   terms coded by sum-to-zero (orthonormal Helmert) contrasts over their live factors.
+//!   P_k the projection onto the columns of the intercept and the first k terms. Its df are
+//!   the rank increase.
+//! - Type III: each term adjusted for every other; A_T = P_X - P_{X without T}.
+//!
+//! Terms are coded by sum-to-zero (orthonormal Helmert) contrasts over their live factors
+//! (see `contrast_columns`); for a term that follows all its marginal terms the span is
+//! that of its cells' incidence matrix.
 //!
 //! Hartley (1967, "Expectations, variances and covariances of ANOVA mean squares by
 //! 'synthesis'", Biometrics 23:105-114): for y = Xβ + Σ_U Z_U u_U + e with independent
@@ -106,27 +109,6 @@ pub fn fit_order(design: &Design) -> Vec<usize> {
     order
 }
 
-/// Columns of the weighted incidence matrix of term `t`: one per occupied cell, √n_c in
-/// the rows of that cell.
-fn incidence(design: &Design, t: usize) -> DMatrix<f64> {
-    let m = design.rows();
-    let cells = design.grid(t).cells();
-    let mut column_of = vec![usize::MAX; cells];
-    let mut next = 0;
-    for row in 0..m {
-        let c = design.cell(t, row);
-        if column_of[c] == usize::MAX {
-            column_of[c] = next;
-            next += 1;
-        }
-    }
-    let mut x = DMatrix::zeros(m, next);
-    for row in 0..m {
-        x[(row, column_of[design.cell(t, row)])] = design.row_count(row).sqrt();
-    }
-    x
-}
-
 /// Orthonormal Helmert contrasts of n levels: column k (0-based) compares level k + 1 with
 /// the levels before it.
 fn helmert(n: usize) -> DMatrix<f64> {
@@ -142,42 +124,98 @@ fn helmert(n: usize) -> DMatrix<f64> {
     h
 }
 
-/// Columns of term `t` in sum-to-zero coding: the Kronecker product, over its subscripts,
-/// of Helmert contrasts (live factors) and indicators (nesting factors), weighted by √n_c.
+/// Columns of term `t` in sum-to-zero coding: in every combination of its nesting
+/// factors' levels, the products over its live factors of Helmert contrasts among the
+/// levels present there (a live factor's levels present given its own nests: a lost
+/// chamber is not contrasted with the chambers that remain), weighted by √n_c. In a
+/// balanced layout this is the Kronecker product of Helmert contrasts (live factors) and
+/// indicators (nesting factors). Coding a term by its contrasts, not its cells, keeps an
+/// interaction assumed absent out of the terms above it: its df pool into the residual.
 fn contrast_columns(design: &Design, t: usize) -> DMatrix<f64> {
+    use std::collections::BTreeMap;
+    let s = &design.layout.structure;
     let grid = design.grid(t);
-    let parts: Vec<DMatrix<f64>> = grid
-        .sizes
+    let m = design.rows();
+    let live: Vec<usize> = grid
+        .subscripts
         .iter()
         .zip(&grid.live)
-        .map(|(&n, &live)| {
-            if live {
-                helmert(n)
-            } else {
-                DMatrix::identity(n, n)
-            }
-        })
+        .filter(|(_, l)| **l)
+        .map(|(&f, _)| f)
         .collect();
-    let width: usize = parts.iter().map(|p| p.ncols()).product();
-    let m = design.rows();
+    let nest: Vec<usize> = grid
+        .subscripts
+        .iter()
+        .zip(&grid.live)
+        .filter(|(_, l)| !**l)
+        .map(|(&f, _)| f)
+        .collect();
+    let key = |tuple: &[u64], factors: &mut dyn Iterator<Item = usize>| -> Vec<u64> {
+        factors.map(|g| tuple[g]).collect()
+    };
+    let ancestors = |f: usize| -> Vec<usize> {
+        (0..s.factors.len())
+            .filter(|&g| s.factors[f].ancestors & (1 << g) != 0)
+            .collect()
+    };
+    // Levels of each live factor present in each combination of its own nests.
+    let mut present: Vec<BTreeMap<Vec<u64>, Vec<u64>>> = vec![BTreeMap::new(); live.len()];
+    for row in 0..m {
+        let tuple = design.row_tuple(row);
+        for (k, &f) in live.iter().enumerate() {
+            let a = key(tuple, &mut ancestors(f).into_iter());
+            let list = present[k].entry(a).or_default();
+            if !list.contains(&tuple[f]) {
+                list.push(tuple[f]);
+            }
+        }
+    }
+    for p in &mut present {
+        for list in p.values_mut() {
+            list.sort();
+        }
+    }
+    // Column blocks, one per combination of the nesting factors' levels.
+    let mut blocks: BTreeMap<Vec<u64>, (usize, Vec<usize>)> = BTreeMap::new();
+    let mut width = 0;
+    for row in 0..m {
+        let tuple = design.row_tuple(row);
+        let c = key(tuple, &mut nest.iter().copied());
+        if blocks.contains_key(&c) {
+            continue;
+        }
+        let sizes: Vec<usize> = live
+            .iter()
+            .enumerate()
+            .map(|(k, &f)| present[k][&key(tuple, &mut ancestors(f).into_iter())].len() - 1)
+            .collect();
+        let count: usize = sizes.iter().product();
+        blocks.insert(c, (width, sizes));
+        width += count;
+    }
+    let mut helmerts: BTreeMap<usize, DMatrix<f64>> = BTreeMap::new();
     let mut x = DMatrix::zeros(m, width);
     for row in 0..m {
         let tuple = design.row_tuple(row);
-        let w = design.row_count(row).sqrt();
-        // Kronecker product of the rows of each part at this cell's levels.
-        let mut acc = vec![w];
-        for (part, &f) in parts.iter().zip(&grid.subscripts) {
-            let level = tuple[f] as usize;
-            let mut next = Vec::with_capacity(acc.len() * part.ncols());
+        let (offset, sizes) = &blocks[&key(tuple, &mut nest.iter().copied())];
+        // Kronecker product of each live factor's contrast row at this cell's level.
+        let mut acc = vec![design.row_count(row).sqrt()];
+        for (k, &f) in live.iter().enumerate() {
+            let list = &present[k][&key(tuple, &mut ancestors(f).into_iter())];
+            let at = list.iter().position(|&v| v == tuple[f]).unwrap_or(0);
+            let h = helmerts
+                .entry(list.len())
+                .or_insert_with(|| helmert(list.len()));
+            let mut next = Vec::with_capacity(acc.len() * sizes[k]);
             for &a in &acc {
-                for k in 0..part.ncols() {
-                    next.push(a * part[(level, k)]);
+                for j in 0..sizes[k] {
+                    next.push(a * h[(at, j)]);
                 }
             }
             acc = next;
         }
-        for (k, v) in acc.into_iter().enumerate() {
-            x[(row, k)] = v;
+        for (j, v) in acc.into_iter().enumerate() {
+            x[(row, offset + j)] = v;
         }
     }
     x
@@ -300,6 +338,9 @@ impl Fit {
         let intercept = DMatrix::from_fn(m, 1, |r, _| (design.row_count(r) / n_obs).sqrt());
         let order = fit_order(design);
         let cell_term = design.cell_term();
+        // With no interaction assumed absent, the terms span every cell and the cell term,
+        // fitted last, is what the others leave.
+        let complete = design.layout.structure.omitted.is_empty();
         let mut sequential: Vec<Block> = vec![Block::Empty; residual];
         let mut df = vec![0u64; residual + 1];
         let mut rank = 1usize;
@@ -309,7 +350,7 @@ impl Fit {
         for (k, &t) in order.iter().enumerate() {
             prefix.push(fitted.len());
             let last = k + 1 == order.len();
-            if last && cell_term == Some(t) {
+            if last && cell_term == Some(t) && complete {
                 let d = m - rank;
                 df[t] = d as u64;
                 rank = m;
@@ -318,7 +359,7 @@ impl Fit {
             }
             let basis: Vec<&DMatrix<f64>> =
                 std::iter::once(&intercept).chain(fitted.iter()).collect();
-            let q = extend(&basis, incidence(design, t));
+            let q = extend(&basis, contrast_columns(design, t));
             df[t] = q.ncols() as u64;
             rank += q.ncols();
             if q.ncols() == 0 {

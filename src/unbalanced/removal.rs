@@ -330,7 +330,20 @@ pub fn validate(layout: &Layout) -> Result<(), (Option<usize>, String)> {
                     .collect();
                 *seen.entry(key).or_insert(0) += n;
             }
-            if let Some((key, _)) = seen.iter().find(|(_, n)| **n == 0) {
+            // Only where the nest itself still has observations: a lost unit of a
+            // random nest takes its fixed levels with it.
+            let mut nest_total: std::collections::BTreeMap<Vec<u64>, u64> = Default::default();
+            for (key, n) in &seen {
+                let mut k = key.clone();
+                k[f] = u64::MAX;
+                *nest_total.entry(k).or_insert(0) += n;
+            }
+            let empty = seen.iter().find(|(key, n)| {
+                let mut k = (*key).clone();
+                k[f] = u64::MAX;
+                **n == 0 && nest_total[&k] > 0
+            });
+            if let Some((key, _)) = empty {
                 let mut at = format!("{} = {}", factor.name, key[f] + 1);
                 let nests: Vec<String> = (0..key.len())
                     .filter(|&g| factor.ancestors & (1 << g) != 0)
