@@ -146,7 +146,8 @@ pub fn parse_cell(structure: &Structure, levels: &Levels, text: &str) -> Result<
         })?;
         entries.push((key.trim().to_string(), value, None));
     }
-    Removal::parse(structure, levels, &entries, None).map_err(|(_, m)| m)
+    Removal::parse(structure, levels, &entries, None)
+        .map_err(|(_, m)| m.trim_start_matches("remove: ").to_string())
 }
 
 /// Mixed-radix strides of the full cells: factor 0 varies slowest.

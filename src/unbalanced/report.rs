@@ -341,10 +341,13 @@ pub fn check(
                     symbol: symbol(model, c),
                 })
                 .collect();
+            // Trade notation: σ² first, the term's own component last, the others by
+            // growing coefficient.
             ems.sort_by(|x, y| {
                 let own = |c: &Component| c.component == labels[i];
-                own(x)
-                    .cmp(&own(y))
+                let sigma = |c: &Component| c.component != "residual";
+                (own(x), sigma(x))
+                    .cmp(&(own(y), sigma(y)))
                     .then(x.coefficient.value().total_cmp(&y.coefficient.value()))
             });
             let test = a.tests[i].as_ref().map(|e| {
