@@ -329,6 +329,103 @@ fn extend(basis: &[&DMatrix<f64>], mut x: DMatrix<f64>) -> DMatrix<f64> {
     }
 }
 
+/// Type III blocks: for every term T the part of the model space orthogonal to every
+/// other term's columns, col(X) ⊖ col(X without T), found from one factorisation.
+///
+/// With U an orthonormal basis of col(X) (the sequential blocks, or every cell when the
+/// model is complete) and R = U'X, a vector Uz of the model space is orthogonal to the
+/// other terms' columns when R_{-T}'z = 0. Write R = C W with C the Cholesky factor of RR'
+/// (so W has orthonormal rows, WW' = I) and w = C'z: the condition is W_{-T}'w = 0, and
+/// since W_{-T}W_{-T}' + W_T W_T' = I, exactly the w with ||W_T'w|| = ||w||: the
+/// eigenvectors of W_T'W_T with eigenvalue 1, mapped by W_T. The cell term of a complete
+/// model, fitted last, is already adjusted for every other term.
+fn type3_blocks(
+    design: &Design,
+    order: &[usize],
+    sequential: &[Block],
+    basis: &[&DMatrix<f64>],
+    full: bool,
+) -> Vec<Block> {
+    let m = design.rows();
+    let residual = design.model.residual();
+    let mut out = vec![Block::Empty; residual];
+    // Every term's columns side by side, after the intercept's.
+    let mut pieces: Vec<DMatrix<f64>> =
+        vec![DMatrix::from_fn(m, 1, |r, _| design.row_count(r).sqrt())];
+    let mut range = vec![(0usize, 0usize); residual];
+    let mut width = 1;
+    for &t in order {
+        let x = contrast_columns(design, t);
+        range[t] = (width, x.ncols());
+        width += x.ncols();
+        pieces.push(x);
+    }
+    let mut x = DMatrix::zeros(m, width);
+    let mut at = 0;
+    for p in &pieces {
+        x.view_mut((0, at), (m, p.ncols())).copy_from(p);
+        at += p.ncols();
+    }
+    let u: Option<DMatrix<f64>> = if full {
+        None
+    } else {
+        let r: usize = basis.iter().map(|b| b.ncols()).sum();
+        let mut u = DMatrix::zeros(m, r);
+        let mut at = 0;
+        for b in basis {
+            u.view_mut((0, at), (m, b.ncols())).copy_from(*b);
+            at += b.ncols();
+        }
+        Some(u)
+    };
+    let r_coords = match &u {
+        None => x,
+        Some(u) => u.transpose() * &x,
+    };
+    let Some(chol) = (&r_coords * r_coords.transpose()).cholesky() else {
+        return out;
+    };
+    let c = chol.l();
+    let w = c
+        .solve_lower_triangular(&r_coords)
+        .unwrap_or_else(|| DMatrix::zeros(r_coords.nrows(), r_coords.ncols()));
+    let ct = c.transpose();
+    for &t in order {
+        if matches!(sequential[t], Block::Rest) {
+            out[t] = Block::Rest;
+            continue;
+        }
+        let (start, count) = range[t];
+        if count == 0 {
+            continue;
+        }
+        let wt = w.columns(start, count).into_owned();
+        let eig = (wt.transpose() * &wt).symmetric_eigen();
+        let keep: Vec<usize> = (0..count)
+            .filter(|&i| eig.eigenvalues[i] > 1.0 - 1e-10)
+            .collect();
+        if keep.is_empty() {
+            continue;
+        }
+        let vectors = DMatrix::from_fn(count, keep.len(), |i, j| eig.eigenvectors[(i, keep[j])]);
+        let ws = &wt * vectors;
+        let z = ct
+            .solve_upper_triangular(&ws)
+            .unwrap_or_else(|| DMatrix::zeros(ws.nrows(), ws.ncols()));
+        let v = match &u {
+            None => z,
+            Some(u) => u * z,
+        };
+        let q = extend(&[], v);
+        out[t] = if q.ncols() == 0 {
+            Block::Empty
+        } else {
+            Block::Basis(q)
+        };
+    }
+    out
+}
+
 impl Fit {
     /// Fits the layout's terms and finds the blocks of its sums of squares.
     pub fn new(design: &Design, sums_of_squares: SumsOfSquares) -> Fit {
@@ -375,34 +472,14 @@ impl Fit {
         let reported = match sums_of_squares {
             SumsOfSquares::Sequential => sequential.clone(),
             SumsOfSquares::Type3 => {
-                let mut out = vec![Block::Empty; residual];
-                for (k, &t) in order.iter().enumerate() {
-                    if matches!(sequential[t], Block::Rest) {
-                        // Fitted last, the cell term is adjusted for every other already.
-                        out[t] = Block::Rest;
-                        continue;
-                    }
-                    let mut others: Vec<DMatrix<f64>> = Vec::new();
-                    for &u in &order[k + 1..] {
-                        let basis: Vec<&DMatrix<f64>> = std::iter::once(&intercept)
-                            .chain(fitted[..prefix[k]].iter())
-                            .chain(others.iter())
-                            .collect();
-                        let q = extend(&basis, contrast_columns(design, u));
-                        if q.ncols() > 0 {
-                            others.push(q);
-                        }
-                    }
-                    let basis: Vec<&DMatrix<f64>> = std::iter::once(&intercept)
-                        .chain(fitted[..prefix[k]].iter())
-                        .chain(others.iter())
-                        .collect();
-                    let q = extend(&basis, contrast_columns(design, t));
-                    df[t] = q.ncols() as u64;
-                    out[t] = if q.ncols() == 0 {
-                        Block::Empty
-                    } else {
-                        Block::Basis(q)
+                let basis: Vec<&DMatrix<f64>> =
+                    std::iter::once(&intercept).chain(fitted.iter()).collect();
+                let out = type3_blocks(design, &order, &sequential, &basis, full);
+                for (t, b) in out.iter().enumerate() {
+                    df[t] = match b {
+                        Block::Basis(q) => q.ncols() as u64,
+                        Block::Rest => df[t],
+                        Block::Empty => 0,
                     };
                 }
                 out
