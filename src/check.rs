@@ -74,12 +74,11 @@ impl Coefficient {
                 }
                 let digits = (3 - x.abs().log10().floor() as i32).clamp(0, 12) as usize;
                 let t = format!("{x:.digits$}");
-                let t = if t.contains('.') {
+                if t.contains('.') {
                     t.trim_end_matches('0').trim_end_matches('.').to_string()
                 } else {
                     t
-                };
-                t
+                }
             }
         }
     }
@@ -251,10 +250,7 @@ pub fn check_with_goal(
     layout.structure.convention = convention;
     if !layout.is_balanced() {
         if convention == Convention::Restricted {
-            return Err(Error::invalid(
-                None,
-                crate::layout::RESTRICTED_UNBALANCED,
-            ));
+            return Err(Error::invalid(None, crate::layout::RESTRICTED_UNBALANCED));
         }
         return crate::unbalanced::report::check(&layout, plan, goal);
     }
@@ -538,7 +534,12 @@ pub(crate) fn repair_report(layout: &Layout, r: &Repair) -> RepairReport {
     }
 }
 
-pub(crate) fn finding(label: &str, verdict: Verdict, reason: &str, repairs: &[RepairReport]) -> String {
+pub(crate) fn finding(
+    label: &str,
+    verdict: Verdict,
+    reason: &str,
+    repairs: &[RepairReport],
+) -> String {
     let head = match verdict {
         Verdict::Untestable => format!("{label} cannot be tested: {reason}."),
         Verdict::NotEstimable => format!("{label} is not estimable: {reason}."),

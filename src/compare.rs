@@ -72,9 +72,9 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
             // the layer left out nor a factor nested in it.
             let mut removed = Vec::new();
             for r in &side.layout.removed {
-                let touched = r.at.iter().any(|&(g, _)| {
-                    g == f || s.factors[g].ancestors & (1 << f) != 0
-                });
+                let touched =
+                    r.at.iter()
+                        .any(|&(g, _)| g == f || s.factors[g].ancestors & (1 << f) != 0);
                 if touched {
                     return Err(usage(format!(
                         "--drop {name}: the removal {} names {name} or a factor nested in it, so it would name other units without it; drop the layer in a copy of the file and give its removals there",
@@ -82,7 +82,11 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
                     )));
                 }
                 removed.push(Removal {
-                    at: r.at.iter().map(|&(g, i)| (if g > f { g - 1 } else { g }, i)).collect(),
+                    at: r
+                        .at
+                        .iter()
+                        .map(|&(g, i)| (if g > f { g - 1 } else { g }, i))
+                        .collect(),
                     ..r.clone()
                 });
             }

@@ -176,7 +176,10 @@ fn bad_changes_are_clear_errors() {
             "finite number of zero or more",
         ),
         (&["--drop", "shelf"], "\"shelf\" is not a factor"),
-        (&["--remove", "light=4,chamber=3"], "beyond the 3 levels of light"),
+        (
+            &["--remove", "light=4,chamber=3"],
+            "beyond the 3 levels of light",
+        ),
         (&[], "needs something to compare with"),
     ];
     for (extra, phrase) in cases {
@@ -231,7 +234,10 @@ fn removed_units_in_a_file_are_checked_unrestricted() {
     assert_eq!(v["observations"], 96);
     assert_eq!(v["unbalanced"]["removed_observations"], 12);
     // light over chamber(light) on Σ b_i - a = 8 - 3 = 5 df.
-    assert_eq!(v["terms"][0]["test"]["denominator"][0]["term"], "chamber(light)");
+    assert_eq!(
+        v["terms"][0]["test"]["denominator"][0]["term"],
+        "chamber(light)"
+    );
     assert_eq!(v["terms"][0]["test"]["denominator_df"], 5.0);
 }
 

@@ -77,9 +77,12 @@ fn assert_reproduces_balanced(layout: &Layout, what: &str) {
         let fit = Fit::new(&design, kind);
         let ems = fit.ems(&design);
         assert_eq!(fit.df, bal_df, "{what} {kind:?}: df");
-        for t in 0..model.terms.len() {
-            if bal_df[t] == 0 {
-                assert!(ems.rows[t].is_empty(), "{what}: a 0-df term has no mean square");
+        for (t, &d) in bal_df.iter().enumerate() {
+            if d == 0 {
+                assert!(
+                    ems.rows[t].is_empty(),
+                    "{what}: a 0-df term has no mean square"
+                );
                 continue;
             }
             let label = model.terms[t].label(&l.structure);
@@ -121,7 +124,12 @@ fn every_shipped_balanced_problem_is_reproduced() {
 fn layout_draw() -> impl Strategy<Value = Layout> {
     (
         prop::collection::vec(
-            (any::<bool>(), prop::bool::weighted(0.35), any::<u32>(), 1u64..=4),
+            (
+                any::<bool>(),
+                prop::bool::weighted(0.35),
+                any::<u32>(),
+                1u64..=4,
+            ),
             1..=4,
         ),
         1u64..=3,
@@ -351,7 +359,12 @@ fn two_stage_nested_coefficients_are_sokal_and_rohlfs() {
     let e_res = 1.0;
     let (a1, a2) = (n0p / n0 * e_pen, (1.0 - n0p / n0) * e_res);
     let satterthwaite = (a1 + a2).powi(2) / (a1 * a1 / 5.0 + a2 * a2 / 20.0);
-    let got = report.terms[0].test.as_ref().unwrap().denominator_df.unwrap();
+    let got = report.terms[0]
+        .test
+        .as_ref()
+        .unwrap()
+        .denominator_df
+        .unwrap();
     assert!(close(got, satterthwaite), "{got} vs {satterthwaite}");
 }
 
@@ -400,7 +413,11 @@ fn sequential_sums_of_squares_add_up() {
             let counts = a.design.term_counts(u);
             n - counts.iter().map(|c| c * c).sum::<f64>() / n
         };
-        assert!(close(sum, want), "{}: {sum} vs {want}", model.terms[u].label(&l.structure));
+        assert!(
+            close(sum, want),
+            "{}: {sum} vs {want}",
+            model.terms[u].label(&l.structure)
+        );
     }
 }
 
@@ -467,8 +484,14 @@ fn a_lost_chamber_keeps_exact_tests() {
     let a = Analysis::new(&l).unwrap();
     assert_eq!(l.observations(), 96);
     assert!(close(coefficient(&a, &l, "light", "chamber(light)"), 12.0));
-    assert!(close(coefficient(&a, &l, "chamber(light)", "chamber(light)"), 12.0));
-    assert!(close(coefficient(&a, &l, "light", "chamber x cultivar(light)"), 3.0));
+    assert!(close(
+        coefficient(&a, &l, "chamber(light)", "chamber(light)"),
+        12.0
+    ));
+    assert!(close(
+        coefficient(&a, &l, "light", "chamber x cultivar(light)"),
+        3.0
+    ));
     let light = a.tests[0].as_ref().unwrap();
     assert_eq!(light.verdict, Verdict::Exact);
     assert_eq!(df(&a, &l, "chamber(light)"), 5);
@@ -503,11 +526,8 @@ fn type3_frees_fixed_terms_of_each_other() {
             if !test.verdict.is_testable() {
                 continue;
             }
-            let target = emsplan::unbalanced::denominator::target(
-                &analysis.design.model,
-                &analysis.ems,
-                t,
-            );
+            let target =
+                emsplan::unbalanced::denominator::target(&analysis.design.model, &analysis.ems, t);
             let size = analysis.design.model.terms.len();
             let mut sum = vec![0.0; size];
             for &(v, w) in &test.denominator {

@@ -182,15 +182,31 @@ fn bad_removals_on_the_command_line() {
         (&["--remove", "light=1,chamber=0"], "start at 1"),
         (&["--remove", "light"], "is not FACTOR=INDEX"),
         (&["--remove", "light=two"], "not a whole-number level index"),
-        (&["--remove", "light=2,replicate=9"], "beyond the 3 replicates"),
+        (
+            &["--remove", "light=2,replicate=9"],
+            "beyond the 3 replicates",
+        ),
         (&["--remove", ""], "names no factor"),
         (
-            &["--remove", "light=2,chamber=3", "--remove", "chamber=3,light=2"],
+            &[
+                "--remove",
+                "light=2,chamber=3",
+                "--remove",
+                "chamber=3,light=2",
+            ],
             "removes nothing",
         ),
-        (&["--remove", "light=2"], "leaves no observation at light = 2"),
         (
-            &["--remove", "light=2,chamber=3", "--convention", "restricted"],
+            &["--remove", "light=2"],
+            "leaves no observation at light = 2",
+        ),
+        (
+            &[
+                "--remove",
+                "light=2,chamber=3",
+                "--convention",
+                "restricted",
+            ],
             "restricted convention",
         ),
         (
@@ -255,17 +271,52 @@ within = ["temperature"]
 fn bad_removals_in_a_file() {
     // The removal's entries start on line 4 of TANKS.
     let cases: &[(&str, &str, Option<usize>, &str)] = &[
-        ("beyond", "temperature = 2\ntank = 4", Some(5), "tank = 4 is beyond the 3 levels of tank in each temperature"),
-        ("unknown", "temperature = 2\nbench = 1", Some(5), "\"bench\" is not a factor (known: temperature, tank; or replicate)"),
-        ("zero", "temperature = 0", Some(4), "level indices start at 1"),
+        (
+            "beyond",
+            "temperature = 2\ntank = 4",
+            Some(5),
+            "tank = 4 is beyond the 3 levels of tank in each temperature",
+        ),
+        (
+            "unknown",
+            "temperature = 2\nbench = 1",
+            Some(5),
+            "\"bench\" is not a factor (known: temperature, tank; or replicate)",
+        ),
+        (
+            "zero",
+            "temperature = 0",
+            Some(4),
+            "level indices start at 1",
+        ),
         ("negative", "tank = -1", Some(4), "level indices start at 1"),
-        ("replicate-beyond", "tank = 1\nreplicate = 5", Some(5), "beyond the 4 replicates"),
+        (
+            "replicate-beyond",
+            "tank = 1\nreplicate = 5",
+            Some(5),
+            "beyond the 4 replicates",
+        ),
         ("string", "tank = \"one\"", Some(4), "invalid type"),
         ("fraction", "tank = 1.5", Some(4), "invalid type"),
         ("empty", "", None, "names no factor"),
-        ("whole-level", "temperature = 1", None, "leaves no observation at temperature = 1"),
-        ("twice", "tank = 2\n[[layout.remove]]\ntemperature = 1\ntank = 2", None, "removes nothing that the removals before it"),
-        ("everything", "tank = 1\n[[layout.remove]]\ntank = 2\n[[layout.remove]]\ntank = 3", None, "leave no observation at all"),
+        (
+            "whole-level",
+            "temperature = 1",
+            None,
+            "leaves no observation at temperature = 1",
+        ),
+        (
+            "twice",
+            "tank = 2\n[[layout.remove]]\ntemperature = 1\ntank = 2",
+            None,
+            "removes nothing that the removals before it",
+        ),
+        (
+            "everything",
+            "tank = 1\n[[layout.remove]]\ntank = 2\n[[layout.remove]]\ntank = 3",
+            None,
+            "leave no observation at all",
+        ),
     ];
     for (name, removal, line, phrase) in cases {
         let path = scratch(&format!("{name}.toml"), &TANKS.replace("REMOVAL", removal));
@@ -274,7 +325,10 @@ fn bad_removals_in_a_file() {
         assert_eq!(code, 1, "{name}: {err}");
         assert!(out.is_empty(), "{name}");
         assert_eq!(err.matches('\n').count(), 1, "{name}: {err}");
-        assert!(err.starts_with(&format!("emsplan: {shown}")), "{name}: {err}");
+        assert!(
+            err.starts_with(&format!("emsplan: {shown}")),
+            "{name}: {err}"
+        );
         if let Some(n) = line {
             assert!(err.contains(&format!(" line {n}: ")), "{name}: {err}");
         } else {
@@ -285,23 +339,38 @@ fn bad_removals_in_a_file() {
     // The restricted convention, asked for in the file or on the command line.
     let text = TANKS
         .replace("REMOVAL", "temperature = 2\ntank = 3")
-        .replace("replicates = 4", "replicates = 4\nconvention = \"restricted\"");
+        .replace(
+            "replicates = 4",
+            "replicates = 4\nconvention = \"restricted\"",
+        );
     let path = scratch("restricted.toml", &text);
     let (code, _, err) = run(&["check", path.to_str().unwrap()]);
     assert_eq!(code, 1);
-    assert!(err.contains(" line 3: ") && err.contains("restricted convention"), "{err}");
-    let path = scratch("plain.toml", &TANKS.replace("REMOVAL", "temperature = 2\ntank = 3"));
+    assert!(
+        err.contains(" line 3: ") && err.contains("restricted convention"),
+        "{err}"
+    );
+    let path = scratch(
+        "plain.toml",
+        &TANKS.replace("REMOVAL", "temperature = 2\ntank = 3"),
+    );
     for c in ["restricted", "both"] {
         let (code, out, err) = run(&["check", path.to_str().unwrap(), "--convention", c]);
         assert_eq!(code, 1, "{c}: {err}");
         assert!(out.is_empty());
         assert_eq!(err.matches('\n').count(), 1, "{err}");
-        assert!(err.contains(path.to_str().unwrap()) && err.contains("unrestricted"), "{err}");
+        assert!(
+            err.contains(path.to_str().unwrap()) && err.contains("unrestricted"),
+            "{err}"
+        );
     }
     // A finite population: the synthesis assumes large populations.
     let text = TANKS
         .replace("REMOVAL", "temperature = 2\ntank = 3")
-        .replace("within = [\"temperature\"]", "within = [\"temperature\"]\npopulation = 10");
+        .replace(
+            "within = [\"temperature\"]",
+            "within = [\"temperature\"]\npopulation = 10",
+        );
     let path = scratch("population.toml", &text);
     let (code, _, err) = run(&["check", path.to_str().unwrap()]);
     assert_eq!(code, 1);
@@ -329,7 +398,10 @@ fn a_term_left_without_df_is_reported_with_what_it_takes_down() {
     assert_eq!(code, 0, "{err}");
     let v: Value = serde_json::from_str(&out).unwrap();
     assert_eq!(term(&v, "tank(temperature)")["df"], 0);
-    assert_eq!(term(&v, "tank(temperature)")["test"]["verdict"], "not_estimable");
+    assert_eq!(
+        term(&v, "tank(temperature)")["test"]["verdict"],
+        "not_estimable"
+    );
     assert_eq!(term(&v, "temperature")["test"]["verdict"], "untestable");
     let findings: Vec<&str> = v["findings"]
         .as_array()
@@ -338,14 +410,17 @@ fn a_term_left_without_df_is_reported_with_what_it_takes_down() {
         .map(|f| f.as_str().unwrap())
         .collect();
     assert!(
-        findings.iter().any(|f| f.contains("the removals leave tank(temperature) with no df")
-            && f.contains("temperature cannot be tested either")),
+        findings.iter().any(
+            |f| f.contains("the removals leave tank(temperature) with no df")
+                && f.contains("temperature cannot be tested either")
+        ),
         "{findings:?}"
     );
     assert!(
         findings
             .iter()
-            .any(|f| f.starts_with("temperature cannot be tested") && f.contains("0 df after the removals")),
+            .any(|f| f.starts_with("temperature cannot be tested")
+                && f.contains("0 df after the removals")),
         "{findings:?}"
     );
     // A whole tank of a random nest may go: it is a unit not sampled, noted as such.
@@ -354,7 +429,10 @@ fn a_term_left_without_df_is_reported_with_what_it_takes_down() {
             .as_array()
             .unwrap()
             .iter()
-            .any(|n| n.as_str().unwrap().contains("no observation is left of tank 2 within temperature 1")),
+            .any(|n| n
+                .as_str()
+                .unwrap()
+                .contains("no observation is left of tank 2 within temperature 1")),
         "{}",
         v["unbalanced"]["notes"]
     );

@@ -77,7 +77,7 @@ fn projection(x: &DMatrix<f64>) -> (DMatrix<f64>, usize) {
     let mut p = DMatrix::zeros(n, n);
     for &i in &keep {
         let c = u.column(i);
-        p += &c * c.transpose();
+        p += c * c.transpose();
     }
     (p, keep.len())
 }
@@ -104,7 +104,12 @@ fn simulated_sequential_mean_squares_match_the_synthesis() {
     let n = design.len();
     assert_eq!(n, 36 - 6 - 1 - 2);
     let residual = model.residual();
-    let labels: Vec<String> = a.fit.order.iter().map(|&t| model.terms[t].label(s)).collect();
+    let labels: Vec<String> = a
+        .fit
+        .order
+        .iter()
+        .map(|&t| model.terms[t].label(s))
+        .collect();
     assert_eq!(
         labels,
         [
@@ -179,7 +184,7 @@ fn simulated_sequential_mean_squares_match_the_synthesis() {
     for round in 0..DATA_SETS {
         // Effects of every term over its full grid.
         let mut effects: Vec<Vec<f64>> = Vec::new();
-        for t in 0..residual {
+        for (t, &component) in theta.iter().enumerate().take(residual) {
             let grid = design.grid(t);
             let mut e: Vec<f64> = (0..grid.cells())
                 .map(|_| StandardNormal.sample(&mut rng))
@@ -188,10 +193,10 @@ fn simulated_sequential_mean_squares_match_the_synthesis() {
                 centre(&mut e, &grid.sizes, &grid.live);
                 // Centred iid N(0, 1) draws have E(Σ effect²) = the term's df (the
                 // dimension of its contrasts), so scaling by κ makes E(Σ effect²)/df = κ².
-                let scale = theta[t].sqrt();
+                let scale = component.sqrt();
                 e.iter_mut().for_each(|x| *x *= scale);
             } else {
-                let sd = theta[t].sqrt();
+                let sd = component.sqrt();
                 e.iter_mut().for_each(|x| *x *= sd);
             }
             effects.push(e);

@@ -3,8 +3,8 @@
 use serde::Serialize;
 
 use super::{Format, csv_table, json, markdown_table, num, text_table};
-use crate::check::{CheckReport, TermReport, TestReport};
 use crate::check::denominator_words;
+use crate::check::{CheckReport, TermReport, TestReport};
 use crate::errorterm::Verdict;
 use crate::layout::Kind;
 

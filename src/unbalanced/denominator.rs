@@ -22,7 +22,9 @@ use crate::dist::{self, CriticalValue};
 use crate::ems::Model;
 use crate::errorterm::Verdict;
 use crate::layout::{Kind, Layout};
-use crate::planning::{PlanningValues, TestPlan, component_values, min_noncentrality, satterthwaite};
+use crate::planning::{
+    PlanningValues, TestPlan, component_values, min_noncentrality, satterthwaite,
+};
 
 use super::fit::SynthesisEms;
 
@@ -54,7 +56,9 @@ pub fn target(model: &Model, ems: &SynthesisEms, t: usize) -> Vec<(usize, f64)> 
         .iter()
         .filter(|(c, _)| *c != t)
         .filter(|(c, _)| {
-            model.kinds[t] == Kind::Random || *c == model.residual() || model.kinds[*c] == Kind::Random
+            model.kinds[t] == Kind::Random
+                || *c == model.residual()
+                || model.kinds[*c] == Kind::Random
         })
         .copied()
         .collect()
@@ -72,7 +76,12 @@ fn largest(row: &[(usize, f64)]) -> f64 {
 }
 
 /// Largest coefficient difference between Σ w_V E(MS_V) and the target.
-fn misfit(ems: &SynthesisEms, target: &[(usize, f64)], weights: &[(usize, f64)], size: usize) -> f64 {
+fn misfit(
+    ems: &SynthesisEms,
+    target: &[(usize, f64)],
+    weights: &[(usize, f64)],
+    size: usize,
+) -> f64 {
     let mut sum = vec![0.0; size];
     for &(v, w) in weights {
         for &(c, x) in &ems.rows[v] {
@@ -86,7 +95,12 @@ fn misfit(ems: &SynthesisEms, target: &[(usize, f64)], weights: &[(usize, f64)],
 }
 
 /// Least-squares weights of `chosen` mean squares for the target.
-fn solve(ems: &SynthesisEms, target: &[(usize, f64)], chosen: &[usize], size: usize) -> Vec<(usize, f64)> {
+fn solve(
+    ems: &SynthesisEms,
+    target: &[(usize, f64)],
+    chosen: &[usize],
+    size: usize,
+) -> Vec<(usize, f64)> {
     let a = DMatrix::from_fn(size, chosen.len(), |c, j| ems.coefficient(chosen[j], c));
     let mut b = DVector::zeros(size);
     for &(c, x) in target {
@@ -185,7 +199,12 @@ pub fn error_term(model: &Model, ems: &SynthesisEms, df: &[u64], t: usize) -> Sy
 }
 
 /// Expected mean squares in the response's units under the planning values.
-pub fn ems_values(model: &Model, ems: &SynthesisEms, plan: &PlanningValues, layout: &Layout) -> Vec<f64> {
+pub fn ems_values(
+    model: &Model,
+    ems: &SynthesisEms,
+    plan: &PlanningValues,
+    layout: &Layout,
+) -> Vec<f64> {
     let theta = component_values(model, plan, &layout.levels);
     ems.rows
         .iter()
@@ -223,7 +242,8 @@ pub fn plan_tests(
             if !test.verdict.is_testable() {
                 return None;
             }
-            let exact_df = (test.verdict == Verdict::Exact).then(|| df[test.denominator[0].0] as f64);
+            let exact_df =
+                (test.verdict == Verdict::Exact).then(|| df[test.denominator[0].0] as f64);
             let mut out = TestPlan {
                 denominator_df: exact_df,
                 power: None,
@@ -262,10 +282,11 @@ pub fn plan_tests(
                         }
                         let cells = term.cells(&layout.levels) as f64;
                         let full_df = term.df(&layout.levels) as f64;
-                        out.min_detectable = min_noncentrality(&critical, plan.power).map(|lambda| {
-                            let kappa = lambda * den / (df1 * own);
-                            (kappa * full_df / cells).sqrt()
-                        });
+                        out.min_detectable =
+                            min_noncentrality(&critical, plan.power).map(|lambda| {
+                                let kappa = lambda * den / (df1 * own);
+                                (kappa * full_df / cells).sqrt()
+                            });
                     }
                 }
                 Kind::Random => {

@@ -441,11 +441,9 @@ impl Fit {
         let mut sequential: Vec<Block> = vec![Block::Empty; residual];
         let mut df = vec![0u64; residual + 1];
         let mut rank = 1usize;
-        // Bases fitted so far, in order; `prefix[k]` is how many of them precede order[k].
+        // Bases fitted so far, in order.
         let mut fitted: Vec<DMatrix<f64>> = Vec::new();
-        let mut prefix = Vec::with_capacity(order.len());
         for (k, &t) in order.iter().enumerate() {
-            prefix.push(fitted.len());
             let last = k + 1 == order.len();
             if last && cell_term == Some(t) && complete {
                 let d = m - rank;
@@ -551,9 +549,7 @@ impl Fit {
         let n_obs: f64 = (0..design.rows()).map(|r| design.row_count(r)).sum();
         // Components: every model term, and σ² (the residual's index).
         let of_block = |q: &DMatrix<f64>| -> Vec<f64> {
-            let mut v: Vec<f64> = (0..residual)
-                .map(|u| component_ss(design, u, q))
-                .collect();
+            let mut v: Vec<f64> = (0..residual).map(|u| component_ss(design, u, q)).collect();
             v.push(q.ncols() as f64);
             v
         };
@@ -586,22 +582,15 @@ impl Fit {
             })
             .collect();
         let explained: Vec<f64> = (0..=residual)
-            .map(|u| {
-                intercept[u]
-                    + sequential
-                        .iter()
-                        .flatten()
-                        .map(|row| row[u])
-                        .sum::<f64>()
-            })
+            .map(|u| intercept[u] + sequential.iter().flatten().map(|row| row[u]).sum::<f64>())
             .collect();
         let rest: Vec<f64> = (0..=residual)
             .map(|u| (totals[u] - explained[u]).max(0.0))
             .collect();
         let mut rows: Vec<Vec<(usize, f64)>> = Vec::with_capacity(residual + 1);
-        for t in 0..residual {
+        for (t, synthesised) in sequential.iter().enumerate() {
             let ss: Option<Vec<f64>> = match &self.reported[t] {
-                Block::Basis(q) => Some(match (self.sums_of_squares, &sequential[t]) {
+                Block::Basis(q) => Some(match (self.sums_of_squares, synthesised) {
                     (SumsOfSquares::Sequential, Some(v)) => v.clone(),
                     _ => of_block(q),
                 }),
@@ -617,9 +606,7 @@ impl Fit {
         // the model are inside it; with interactions omitted, σ² alone remains.
         let mut left: Vec<f64> = (0..=residual)
             .map(|u| {
-                if u == residual {
-                    0.0
-                } else if model.kinds[u] == Kind::Fixed {
+                if u == residual || model.kinds[u] == Kind::Fixed {
                     0.0
                 } else {
                     (n_obs - totals_in_model(self.full, &explained, &rest, u)).max(0.0)
@@ -673,7 +660,11 @@ fn component_ss(design: &Design, u: usize, q: &DMatrix<f64>) -> f64 {
     }
     if design.kind(u) == Kind::Fixed {
         for j in 0..d {
-            centre_live(&mut sums[j * cells..(j + 1) * cells], &grid.sizes, &grid.live);
+            centre_live(
+                &mut sums[j * cells..(j + 1) * cells],
+                &grid.sizes,
+                &grid.live,
+            );
         }
     }
     sums.iter().map(|x| x * x).sum()
