@@ -53,6 +53,14 @@ impl Coefficient {
         ((x - r).abs() <= 1e-9 * x.abs().max(1.0) && r.abs() < 1e15).then_some(r as i64)
     }
 
+    /// The exact fraction, for a balanced layout's coefficient.
+    pub fn exact(&self) -> Option<Rational> {
+        match self {
+            Coefficient::Exact(r) => Some(*r),
+            Coefficient::Approximate(_) => None,
+        }
+    }
+
     pub fn is_one(&self) -> bool {
         match self {
             Coefficient::Exact(r) => *r == Rational::from_integer(1),

@@ -33,7 +33,7 @@ fn ems(report: &CheckReport, term: &str) -> BTreeMap<String, f64> {
         .map(|c| {
             (
                 c.component.clone(),
-                *c.coefficient.numer() as f64 / *c.coefficient.denom() as f64,
+                c.coefficient.value(),
             )
         })
         .collect()
@@ -56,7 +56,7 @@ fn test_of(report: &CheckReport, term: &str) -> (Verdict, BTreeMap<String, f64>,
             .map(|d| {
                 (
                     d.term.clone(),
-                    *d.coefficient.numer() as f64 / *d.coefficient.denom() as f64,
+                    d.coefficient.value(),
                 )
             })
             .collect(),
@@ -367,7 +367,8 @@ population = 10
         .iter()
         .find(|c| c.component == "mowing x meadow")
         .unwrap();
-    assert_eq!((*c.coefficient.numer(), *c.coefficient.denom()), (9, 5));
+    let exact = c.coefficient.exact().expect("balanced coefficients are exact");
+    assert_eq!((*exact.numer(), *exact.denom()), (9, 5));
 }
 
 /// Two random factors from finite populations (Cornfield and Tukey 1956): E(MS_A) =
