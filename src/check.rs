@@ -438,7 +438,7 @@ fn explain(layout: &Layout, a: &Analysis, t: usize, e: &ErrorTerm) -> Option<Str
                 .map(|&(v, w)| (label(v), Coefficient::Exact(w)))
                 .collect();
             Some(format!(
-                "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946) under the planning values",
+                "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946) under the planning values; with few denominator df its real level and power can be far from the nominal ones, so confirm them with `emsplan simulate`",
                 denominator_words(&parts)
             ))
         }

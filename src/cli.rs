@@ -38,6 +38,45 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
+    /// Simulate a layout at its planning values: dummy data, and a Monte Carlo check of
+    /// the expected mean squares, error rates and power of the planned tests.
+    Simulate {
+        /// The layout file (TOML), with a [prior] table.
+        layout: PathBuf,
+        /// Seed of the random draws: the same seed gives the same output everywhere.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        /// Number of simulated data sets (0: only write --data).
+        #[arg(long, default_value_t = 2000)]
+        runs: u64,
+        /// Write one dummy data set (CSV, long format) to this file.
+        #[arg(long)]
+        data: Option<PathBuf>,
+        /// Grand mean of the dummy data set (default 0).
+        #[arg(long, default_value_t = 0.0, allow_negative_numbers = true)]
+        mean: f64,
+        /// Number nested levels across nests (bench1..bench6) instead of within each nest.
+        #[arg(long)]
+        unique_labels: bool,
+        /// Level of every test (overrides `alpha` in the file; default 0.05).
+        #[arg(long)]
+        alpha: Option<f64>,
+        #[arg(long, value_enum, default_value = "text")]
+        format: Format,
+    },
+    /// Analyze balanced data: the ANOVA with each term over its planned error term,
+    /// variance components by the method of moments, and the means of the fixed terms.
+    Analyze {
+        /// The layout file (TOML) the experiment was run to.
+        layout: PathBuf,
+        /// The data (CSV, long format): a column of level labels per factor and a response.
+        data: PathBuf,
+        /// The response column (default: the only column that is not a factor, or `response`).
+        #[arg(long)]
+        response: Option<String>,
+        #[arg(long, value_enum, default_value = "text")]
+        format: Format,
+    },
     /// Compare two layouts side by side: a second file, or the base with changes.
     Compare {
         /// The base layout file.
@@ -60,6 +99,26 @@ pub enum Command {
         planning: PlanningArgs,
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
+    },
+    /// Write a report that justifies the design: self-contained HTML, or Markdown.
+    Report {
+        /// The layout or problem file (TOML).
+        layout: PathBuf,
+        /// Write the report to this file (default: standard output). With --markdown the
+        /// figures are written beside it as NAME-*.svg.
+        #[arg(short = 'o', long = "output")]
+        output: Option<PathBuf>,
+        /// Markdown instead of HTML, for a supplement.
+        #[arg(long)]
+        markdown: bool,
+        /// Add a Monte Carlo confirmation of every test with this many simulated data sets.
+        #[arg(long)]
+        runs: Option<u64>,
+        /// Seed of the Monte Carlo run.
+        #[arg(long, default_value_t = 1)]
+        seed: u64,
+        #[command(flatten)]
+        planning: PlanningArgs,
     },
 }
 
@@ -134,6 +193,21 @@ pub fn main() -> ExitCode {
     }
 }
 
+/// Jobs that read balanced layouts only refuse one with cells removed, saying what does
+/// handle it.
+fn balanced_only(layout: &Layout, path: &std::path::Path, job: &str) -> Result<(), Error> {
+    if layout.is_balanced() {
+        return Ok(());
+    }
+    Err(Error::Invalid {
+        file: Some(path.display().to_string()),
+        line: layout.removed.first().and_then(|r| r.line),
+        message: format!(
+            "emsplan {job} handles balanced layouts only so far, and this one has cells removed ([[layout.remove]]): `emsplan check` and `emsplan compare` handle it; for {job}, use the layout without its removals"
+        ),
+    })
+}
+
 /// Runs a parsed command and returns what goes to stdout.
 pub fn run(cli: Cli) -> Result<String, Error> {
     match cli.command {
@@ -172,6 +246,67 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     ))
                 }
             }
+        }
+        Command::Simulate {
+            layout: layout_path,
+            seed,
+            runs,
+            data,
+            mean,
+            unique_labels,
+            alpha,
+            format,
+        } => {
+            if runs > crate::simulate::MAX_RUNS {
+                return Err(Error::Usage(format!(
+                    "--runs {runs} is more than {} data sets: ask for fewer",
+                    crate::simulate::MAX_RUNS
+                )));
+            }
+            if !mean.is_finite() {
+                return Err(Error::Usage(format!(
+                    "--mean {mean} is not a finite number"
+                )));
+            }
+            let args = PlanningArgs { alpha, power: None };
+            let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
+            balanced_only(&layout, &layout_path, "simulate")?;
+            let request = crate::simulate::Request {
+                seed,
+                runs,
+                data: data.as_ref().map(|p| crate::simulate::DataRequest {
+                    path: p.display().to_string(),
+                    mean,
+                    unique_labels,
+                }),
+            };
+            let (report, set) = crate::simulate::simulate(&layout, &plan, &request)
+                .map_err(|e| e.in_file(&layout_path))?;
+            if let (Some(path), Some(set)) = (&data, &set) {
+                std::fs::write(path, render::simulate::data_csv(set)).map_err(|source| {
+                    Error::Io {
+                        path: path.display().to_string(),
+                        source,
+                    }
+                })?;
+            }
+            Ok(render::simulate::render(&report, format))
+        }
+        Command::Analyze {
+            layout: layout_path,
+            data,
+            response,
+            format,
+        } => {
+            let args = PlanningArgs {
+                alpha: None,
+                power: None,
+            };
+            let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
+            balanced_only(&layout, &layout_path, "analyze")?;
+            let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
+            let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
+            Ok(render::analyze::render(&report, format))
         }
         Command::Compare {
             base,
@@ -218,6 +353,98 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 convention.map(Convention::from),
             )?;
             Ok(render::compare::render(&comparison, format))
+        }
+        Command::Report {
+            layout,
+            output,
+            markdown,
+            runs,
+            seed,
+            planning,
+        } => {
+            let side = load_side(&layout, &planning)?;
+            balanced_only(&side.layout, &layout, "report")?;
+            let mut report =
+                crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
+            if let Some(runs) = runs {
+                if runs == 0 || runs > crate::simulate::MAX_RUNS {
+                    return Err(Error::Usage(format!(
+                        "--runs {runs}: ask for between 1 and {} data sets",
+                        crate::simulate::MAX_RUNS
+                    )));
+                }
+                let request = crate::simulate::Request {
+                    seed,
+                    runs,
+                    data: None,
+                };
+                let (mc, _) = crate::simulate::simulate(&side.layout, &side.plan, &request)
+                    .map_err(|e| e.in_file(&layout))?;
+                report
+                    .sections
+                    .push(render::report::monte_carlo_section(&mc));
+            }
+            write_report(&report, output.as_deref(), markdown)
+        }
+    }
+}
+
+/// The command line as typed, for the report's reproduction note.
+fn command_line() -> String {
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    let quoted: Vec<String> = args
+        .iter()
+        .map(|a| {
+            if a.chars()
+                .all(|c| c.is_alphanumeric() || "-_./=,:".contains(c))
+            {
+                a.clone()
+            } else {
+                format!("'{}'", a.replace('\'', "'\\''"))
+            }
+        })
+        .collect();
+    format!("emsplan {}", quoted.join(" "))
+}
+
+/// Writes the report where asked; returns what goes to stdout.
+fn write_report(
+    report: &crate::report::Report,
+    output: Option<&std::path::Path>,
+    markdown: bool,
+) -> Result<String, Error> {
+    let write = |path: &std::path::Path, text: &str| {
+        std::fs::write(path, text).map_err(|source| Error::Io {
+            path: path.display().to_string(),
+            source,
+        })
+    };
+    match (output, markdown) {
+        (None, false) => Ok(render::report::html(report)),
+        (None, true) => {
+            eprintln!(
+                "emsplan: figures are not written without -o FILE; the Markdown links to them"
+            );
+            Ok(render::report::markdown(report, "report-").0)
+        }
+        (Some(path), false) => {
+            write(path, &render::report::html(report))?;
+            eprintln!("emsplan: wrote {}", path.display());
+            Ok(String::new())
+        }
+        (Some(path), true) => {
+            let stem = path
+                .file_stem()
+                .map(|s| s.to_string_lossy().into_owned())
+                .unwrap_or_else(|| "report".into());
+            let (text, figures) = render::report::markdown(report, &format!("{stem}-"));
+            write(path, &text)?;
+            let dir = path.parent().unwrap_or_else(|| std::path::Path::new(""));
+            for (name, svg) in figures {
+                write(&dir.join(name), &svg)?;
+            }
+            eprintln!("emsplan: wrote {} and its figures", path.display());
+            Ok(String::new())
         }
     }
 }

@@ -28,6 +28,13 @@ pub enum Error {
         line: Option<usize>,
         message: String,
     },
+    /// A data file (CSV) could not be used: what is wrong, and the line where it is known.
+    #[error("{}{}", where_(&Some(path.clone()), line), message)]
+    Data {
+        path: String,
+        line: Option<usize>,
+        message: String,
+    },
     /// A command-line argument was wrong.
     #[error("{0}")]
     Usage(String),

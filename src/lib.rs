@@ -4,6 +4,8 @@
 //! `term` and `ems` (the symbolic model, then numbers) -> `errorterm` (how each term is
 //! tested) -> the jobs (`check`, ...) -> `render`. `cli` is a thin shell over them.
 
+pub mod analyze;
+pub mod balanced;
 pub mod check;
 pub mod cli;
 pub mod compare;
@@ -16,6 +18,8 @@ pub mod layout;
 pub mod planning;
 pub mod render;
 pub mod repair;
+pub mod report;
+pub mod simulate;
 pub mod spec;
 pub mod term;
 pub mod unbalanced;

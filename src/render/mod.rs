@@ -1,8 +1,11 @@
 //! Renderers: the only place that formats. Each takes a job's result struct and returns
 //! text; none computes statistics.
 
+pub mod analyze;
 pub mod check;
 pub mod compare;
+pub mod report;
+pub mod simulate;
 
 use comfy_table::{Table, presets};
 

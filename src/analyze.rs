@@ -1,0 +1,815 @@
+//! The `analyze` job: the analysis of variance of real balanced data, each term tested
+//! over the error term the layout plans for it, with variance components by the method of
+//! moments and the means of the fixed terms.
+//!
+//! # Reading the data
+//!
+//! Long format: one row per observation, one column of level labels per factor (named as
+//! the factor) and a numeric response column. Labels are any strings. A nested factor's
+//! labels are read within their nest: `bench1` under `light1` and `bench1` under `light2`
+//! are different benches. Labels that are unique across nests (`bench1` ... `bench6`) work
+//! as well, since each nest then simply holds its own labels. Levels are numbered in the
+//! order they first appear.
+//!
+//! # Tests
+//!
+//! - exact: F = MS_T / MS_D on (df_T, df_D), p = P(F > f) from the central F;
+//! - synthetic: the quasi-F F = MS_T / D with D = Σ wᵥ MSᵥ from the observed mean squares,
+//!   and the denominator df from Satterthwaite (1946): df = D² / Σ (wᵥ MSᵥ)² / dfᵥ;
+//!   when D ≤ 0 for the data there is no quasi-F.
+//!
+//! # Variance components (method of moments)
+//!
+//! The expected mean squares are set equal to the observed ones, MS_T = Σ_U c_TU θ_U, and
+//! solved for the components θ (the ANOVA, or moment, estimators of e.g. Searle, Casella
+//! and McCulloch 1992, Variance Components, ch. 4; common practice). Component U appears
+//! in E(MS_T) only when U's subscripts include T's, so taken from the most subscripts down
+//! (the residual first) the system is triangular and each step is
+//!
+//! θ_T = (MS_T - Σ_{U ≠ T} c_TU θ_U) / c_TT.
+//!
+//! A term with 0 df has no mean square: its component, and every component whose equation
+//! needs it, is not estimable. Estimates can be negative; they are shown and flagged.
+
+use std::collections::HashMap;
+use std::path::Path;
+
+use serde::Serialize;
+
+use crate::balanced::{Balanced, cell_summaries, index_in};
+use crate::check::{Analysis, DenominatorPart, symbol};
+use crate::dist;
+use crate::error::Error;
+use crate::errorterm::Verdict;
+use crate::layout::{Convention, Kind, Layout};
+use crate::planning::{satterthwaite, to_f64};
+use crate::term::Mask;
+
+/// Balanced observations read from a data file, in cell order.
+#[derive(Debug, Clone)]
+pub struct Observations {
+    /// The file they came from, for messages.
+    pub path: String,
+    pub response: String,
+    /// Responses cell by cell (cells as in `balanced`), replicates in the order read.
+    pub y: Vec<f64>,
+    /// `labels[j][nest][level]`: the label of factor j's level within a nest, the nest
+    /// being the index of the combination of j's ancestors' levels.
+    pub labels: Vec<Vec<Vec<String>>>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct AnalyzeReport {
+    pub name: String,
+    pub convention: Convention,
+    pub data: String,
+    pub response: String,
+    pub observations: u64,
+    pub alpha: f64,
+    pub grand_mean: f64,
+    pub terms: Vec<AnovaRow>,
+    pub components: Vec<ComponentEstimate>,
+    pub means: Vec<MeansTable>,
+    /// What needs attention: negative estimates, synthetic denominators below zero, ...
+    pub notes: Vec<String>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct AnovaRow {
+    pub label: String,
+    pub kind: Kind,
+    pub residual: bool,
+    pub df: u64,
+    pub ss: f64,
+    /// Null for a term with 0 df.
+    pub ms: Option<f64>,
+    pub test: Option<AnovaTest>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct AnovaTest {
+    pub verdict: Verdict,
+    pub denominator: Vec<DenominatorPart>,
+    /// The denominator's value for these data: MS_D, or Σ wᵥ MSᵥ.
+    pub denominator_ms: Option<f64>,
+    /// Denominator df: the mean square's df, or Satterthwaite's from the observed mean squares.
+    pub denominator_df: Option<f64>,
+    /// F, or the quasi-F of a synthetic test.
+    pub f: Option<f64>,
+    pub p: Option<f64>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct ComponentEstimate {
+    pub term: String,
+    /// σ²(term) in the trade's notation.
+    pub symbol: String,
+    /// Method-of-moments estimate of the variance; null when not estimable.
+    pub estimate: Option<f64>,
+    /// Its square root when it is not negative.
+    pub sd: Option<f64>,
+    pub negative: bool,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct MeansTable {
+    pub term: String,
+    /// The factors whose levels index the table (the term's live and nesting factors).
+    pub factors: Vec<String>,
+    /// Observations behind each mean.
+    pub per_mean: u64,
+    pub rows: Vec<MeanRow>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct MeanRow {
+    pub levels: Vec<String>,
+    pub mean: f64,
+}
+
+/// The advice that goes with a negative variance component estimate.
+pub const NEGATIVE_ADVICE: &str = "a negative estimate says the variance is small next to its sampling error; common practice is to report it as zero and to consider a model without the term (pooling its mean square into its error term), a choice best made with a statistician";
+
+/// Reads a long-format CSV file of a layout's observations and checks it is balanced.
+pub fn read_data(
+    path: &Path,
+    layout: &Layout,
+    response: Option<&str>,
+) -> Result<Observations, Error> {
+    let name = path.display().to_string();
+    let bytes = std::fs::read(path).map_err(|source| Error::Io {
+        path: name.clone(),
+        source,
+    })?;
+    parse_data(&name, &bytes, layout, response)
+}
+
+/// Parses CSV bytes (see `read_data`); `name` is the file name for messages.
+pub fn parse_data(
+    name: &str,
+    bytes: &[u8],
+    layout: &Layout,
+    response: Option<&str>,
+) -> Result<Observations, Error> {
+    let fail = |line: Option<usize>, message: String| Error::Data {
+        path: name.to_string(),
+        line,
+        message,
+    };
+    let bytes = bytes.strip_prefix(b"\xEF\xBB\xBF").unwrap_or(bytes);
+    let s = &layout.structure;
+    let k = s.factors.len();
+    let factor_list = s.known_names();
+    if bytes.iter().all(|b| b.is_ascii_whitespace()) {
+        return Err(fail(
+            Some(1),
+            format!(
+                "the file is empty: it needs a header row naming the factors ({factor_list}) and a response column, then one row per observation"
+            ),
+        ));
+    }
+    let mut reader = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .flexible(true)
+        .trim(csv::Trim::All)
+        .from_reader(bytes);
+    let header: Vec<String> = reader
+        .headers()
+        .map_err(|e| csv_error(name, &e))?
+        .iter()
+        .map(str::to_string)
+        .collect();
+    for (i, h) in header.iter().enumerate() {
+        if h.is_empty() {
+            return Err(fail(
+                Some(1),
+                format!(
+                    "column {} of the header has no name: name every column",
+                    i + 1
+                ),
+            ));
+        }
+        if header[..i].contains(h) {
+            return Err(fail(
+                Some(1),
+                format!("the header names the column \"{h}\" twice: give each column its own name"),
+            ));
+        }
+    }
+    let columns = header.join(", ");
+    let mut factor_col = Vec::with_capacity(k);
+    for f in &s.factors {
+        let c = header.iter().position(|h| *h == f.name).ok_or_else(|| {
+            fail(
+                Some(1),
+                format!(
+                    "no column for the factor \"{}\" (the header has: {columns}): add a column of its level labels named \"{}\"",
+                    f.name, f.name
+                ),
+            )
+        })?;
+        factor_col.push(c);
+    }
+    let others: Vec<usize> = (0..header.len())
+        .filter(|c| !factor_col.contains(c))
+        .collect();
+    let response_col = match response {
+        Some(r) => header.iter().position(|h| h == r).ok_or_else(|| {
+            fail(
+                Some(1),
+                format!("no column \"{r}\" for the response (the header has: {columns}): check --response"),
+            )
+        })?,
+        None => match others.as_slice() {
+            [] => {
+                return Err(fail(
+                    Some(1),
+                    format!(
+                        "no response column: the header has only the factors ({columns}); add a column of measurements"
+                    ),
+                ));
+            }
+            [only] => *only,
+            _ => header.iter().position(|h| h == "response").ok_or_else(|| {
+                let names: Vec<&str> = others.iter().map(|&c| header[c].as_str()).collect();
+                fail(
+                    Some(1),
+                    format!(
+                        "several columns could be the response ({}): choose one with --response",
+                        names.join(", ")
+                    ),
+                )
+            })?,
+        },
+    };
+    if factor_col.contains(&response_col) {
+        return Err(fail(
+            Some(1),
+            format!(
+                "\"{}\" is a factor, not a response: choose a column of measurements with --response",
+                header[response_col]
+            ),
+        ));
+    }
+    let response_name = header[response_col].clone();
+
+    let levels: Vec<usize> = layout
+        .levels
+        .per_factor
+        .iter()
+        .map(|&n| n as usize)
+        .collect();
+    let r = layout.levels.replicates as usize;
+    let balanced_shape = Balanced::new(&crate::ems::Model::new(s), &layout.levels)?;
+    // Factors in an order where every factor's ancestors come before it.
+    let mut order: Vec<usize> = (0..k).collect();
+    order.sort_by_key(|&j| s.factors[j].ancestors.count_ones());
+    let nests: Vec<usize> = (0..k)
+        .map(|j| nest_count(&levels, s.factors[j].ancestors))
+        .collect();
+
+    // First pass: every row's labels (interned per factor), response and line.
+    struct Row {
+        cell: usize,
+        line: usize,
+        y: f64,
+    }
+    let mut names_of: Vec<Vec<String>> = vec![Vec::new(); k];
+    let mut ids: Vec<HashMap<String, u32>> = vec![HashMap::new(); k];
+    let mut raw: Vec<u32> = Vec::new();
+    let mut rows: Vec<Row> = Vec::new();
+    let mut record = csv::StringRecord::new();
+    loop {
+        match reader.read_record(&mut record) {
+            Ok(true) => {}
+            Ok(false) => break,
+            Err(e) => return Err(csv_error(name, &e)),
+        }
+        let line = record.position().map_or(0, |p| p.line() as usize);
+        if record.len() != header.len() {
+            return Err(fail(
+                Some(line),
+                format!(
+                    "the row has {} fields, but the header has {} columns ({columns})",
+                    record.len(),
+                    header.len()
+                ),
+            ));
+        }
+        for j in 0..k {
+            let label = &record[factor_col[j]];
+            if label.is_empty() {
+                return Err(fail(
+                    Some(line),
+                    format!(
+                        "no level label for the factor \"{}\": every row needs one",
+                        s.factors[j].name
+                    ),
+                ));
+            }
+            let id = match ids[j].get(label) {
+                Some(&id) => id,
+                None => {
+                    let id = names_of[j].len() as u32;
+                    names_of[j].push(label.to_string());
+                    ids[j].insert(label.to_string(), id);
+                    id
+                }
+            };
+            raw.push(id);
+        }
+        let text = &record[response_col];
+        if text.is_empty() {
+            return Err(fail(
+                Some(line),
+                format!(
+                    "the response \"{response_name}\" is missing: analyze needs a value in every row (data with missing values are unbalanced, which needs the unbalanced-layouts feature, not yet built)"
+                ),
+            ));
+        }
+        let y: f64 = text.parse().ok().filter(|v: &f64| v.is_finite()).ok_or_else(|| {
+            fail(
+                Some(line),
+                format!(
+                    "the response \"{response_name}\" is \"{text}\", which is not a finite number: write a number such as 12.5"
+                ),
+            )
+        })?;
+        rows.push(Row { cell: 0, line, y });
+    }
+    if rows.is_empty() {
+        return Err(fail(
+            Some(1),
+            format!(
+                "the file has a header but no data rows: add one row per observation ({} in all)",
+                layout.observations()
+            ),
+        ));
+    }
+
+    // Second pass, factor by factor with ancestors first: number each label within its
+    // nest, in order of first appearance, and hold the count to the layout's.
+    let mut level_of: Vec<usize> = vec![0; rows.len() * k];
+    let mut labels: Vec<Vec<Vec<String>>> = nests.iter().map(|&n| vec![Vec::new(); n]).collect();
+    let mut at = vec![0usize; k];
+    for &j in &order {
+        let f = &s.factors[j];
+        let mut index: HashMap<(usize, u32), usize> = HashMap::new();
+        // Per nest: (label id, rows, first line) by level.
+        let mut seen: Vec<Vec<(u32, usize, usize)>> = vec![Vec::new(); nests[j]];
+        let mut nest_of_row = vec![0usize; rows.len()];
+        for (i, row) in rows.iter().enumerate() {
+            for a in 0..k {
+                at[a] = level_of[i * k + a];
+            }
+            let nest = index_in(&levels, f.ancestors, &at);
+            nest_of_row[i] = nest;
+            let id = raw[i * k + j];
+            let level = *index.entry((nest, id)).or_insert_with(|| {
+                seen[nest].push((id, 0, row.line));
+                seen[nest].len() - 1
+            });
+            seen[nest][level].1 += 1;
+            level_of[i * k + j] = level;
+        }
+        for (nest, found) in seen.iter().enumerate() {
+            if found.len() > levels[j] {
+                // The rarest label is the likeliest mistake: point at its first row.
+                let &(id, count, line) = found
+                    .iter()
+                    .min_by_key(|(_, count, line)| (*count, std::cmp::Reverse(*line)))
+                    .unwrap_or(&found[0]);
+                let all: Vec<&str> = found
+                    .iter()
+                    .map(|(id, _, _)| names_of[j][*id as usize].as_str())
+                    .collect();
+                let first = nest_of_row.iter().position(|&n| n == nest).unwrap_or(0);
+                for a in 0..k {
+                    at[a] = level_of[first * k + a];
+                }
+                return Err(fail(
+                    Some(line),
+                    format!(
+                        "the factor \"{}\" has {} levels{} ({}), but the layout declares {}: \"{}\" is the rarest ({count} row{}, first here); check the labels, or the layout's levels",
+                        f.name,
+                        found.len(),
+                        nest_text_at(layout, &labels, j, &at),
+                        all.join(", "),
+                        levels[j],
+                        names_of[j][id as usize],
+                        if count == 1 { "" } else { "s" },
+                    ),
+                ));
+            }
+            labels[j][nest] = found
+                .iter()
+                .map(|(id, _, _)| names_of[j][*id as usize].clone())
+                .collect();
+        }
+    }
+    for (i, row) in rows.iter_mut().enumerate() {
+        row.cell = balanced_shape.cell(&level_of[i * k..(i + 1) * k]);
+    }
+    // What is absent is reported at the end of the data, the line by which it was due.
+    let end = rows.last().map(|r| r.line);
+    // Every nest must hold every level.
+    for &j in &order {
+        let f = &s.factors[j];
+        for (nest, known) in labels[j].iter().enumerate() {
+            if known.len() < levels[j] {
+                let within = nest_text(layout, &labels, j, nest);
+                return Err(fail(
+                    end,
+                    format!(
+                        "at the end of the data, the factor \"{}\" has {} level{}{within} ({}), but the layout declares {}: add the missing level's rows, or change the layout's levels",
+                        f.name,
+                        known.len(),
+                        if known.len() == 1 { "" } else { "s" },
+                        if known.is_empty() {
+                            "none".to_string()
+                        } else {
+                            known.join(", ")
+                        },
+                        levels[j]
+                    ),
+                ));
+            }
+        }
+    }
+    // Every cell must hold exactly its replicates.
+    let cells = balanced_shape.cells();
+    let mut count = vec![0usize; cells];
+    let mut y = vec![0.0; cells * r];
+    let mut first_line: Vec<usize> = vec![0; cells];
+    for row in &rows {
+        let c = row.cell;
+        if count[c] == r {
+            let earlier: Vec<String> = rows
+                .iter()
+                .filter(|o| o.cell == c && o.line < row.line)
+                .map(|o| o.line.to_string())
+                .collect();
+            return Err(fail(
+                Some(row.line),
+                format!(
+                    "one row too many for the cell {}: the layout has {r} replicate{} per cell, already given on line{} {}; is a row duplicated?",
+                    cell_text(layout, &balanced_shape, &labels, c),
+                    if r == 1 { "" } else { "s" },
+                    if earlier.len() == 1 { "" } else { "s" },
+                    earlier.join(", ")
+                ),
+            ));
+        }
+        if count[c] == 0 {
+            first_line[c] = row.line;
+        }
+        y[c * r + count[c]] = row.y;
+        count[c] += 1;
+    }
+    if let Some(c) = (0..cells).find(|&c| count[c] < r) {
+        let (line, what) = if count[c] == 0 {
+            (end, "at the end of the data, the cell".to_string())
+        } else {
+            (Some(first_line[c]), "the cell".to_string())
+        };
+        let has = if count[c] == 0 {
+            "no rows".to_string()
+        } else {
+            format!("only {} of its {r} replicates", count[c])
+        };
+        return Err(fail(
+            line,
+            format!(
+                "{what} {} has {has}, so the data are unbalanced: analyze needs every cell with all its replicates (unbalanced data need the unbalanced-layouts feature, not yet built)",
+                cell_text(layout, &balanced_shape, &labels, c)
+            ),
+        ));
+    }
+    Ok(Observations {
+        path: name.to_string(),
+        response: response_name,
+        y,
+        labels,
+    })
+}
+
+fn csv_error(name: &str, e: &csv::Error) -> Error {
+    let line = e.position().map(|p| p.line() as usize);
+    let message = match e.kind() {
+        csv::ErrorKind::Utf8 { .. } => {
+            "this row is not UTF-8 text: save the file as UTF-8 CSV".to_string()
+        }
+        _ => format!("cannot read the CSV: {e}"),
+    };
+    Error::Data {
+        path: name.to_string(),
+        line,
+        message,
+    }
+}
+
+fn nest_count(levels: &[usize], ancestors: Mask) -> usize {
+    (0..levels.len())
+        .filter(|j| ancestors & (1 << j) != 0)
+        .map(|j| levels[j])
+        .product()
+}
+
+/// ` within light = light2` for factor j at level indices `at` of its ancestors.
+fn nest_text_at(layout: &Layout, labels: &[Vec<Vec<String>>], j: usize, at: &[usize]) -> String {
+    let anc = layout.structure.factors[j].ancestors;
+    if anc == 0 {
+        String::new()
+    } else {
+        format!(" within {}", describe(layout, labels, anc, at))
+    }
+}
+
+/// ` within light = light2` for nest `nest` of factor j, from the labels read.
+fn nest_text(layout: &Layout, labels: &[Vec<Vec<String>>], j: usize, nest: usize) -> String {
+    let s = &layout.structure;
+    let anc = s.factors[j].ancestors;
+    if anc == 0 {
+        return String::new();
+    }
+    let levels: Vec<usize> = layout
+        .levels
+        .per_factor
+        .iter()
+        .map(|&n| n as usize)
+        .collect();
+    let mut at = vec![0usize; levels.len()];
+    let mut rest = nest;
+    for a in (0..levels.len()).rev() {
+        if anc & (1 << a) != 0 {
+            at[a] = rest % levels[a];
+            rest /= levels[a];
+        }
+    }
+    format!(" within {}", describe(layout, labels, anc, &at))
+}
+
+/// `light = light1, chamber = chamber2` for the factors of `mask` at level indices `at`.
+fn describe(layout: &Layout, labels: &[Vec<Vec<String>>], mask: Mask, at: &[usize]) -> String {
+    let s = &layout.structure;
+    let levels: Vec<usize> = layout
+        .levels
+        .per_factor
+        .iter()
+        .map(|&n| n as usize)
+        .collect();
+    (0..s.factors.len())
+        .filter(|&j| mask & (1 << j) != 0)
+        .map(|j| {
+            let nest = index_in(&levels, s.factors[j].ancestors, at);
+            let label = labels[j]
+                .get(nest)
+                .and_then(|l| l.get(at[j]))
+                .cloned()
+                .unwrap_or_else(|| format!("level {}", at[j] + 1));
+            format!("{} = {label}", s.factors[j].name)
+        })
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+fn cell_text(layout: &Layout, b: &Balanced, labels: &[Vec<Vec<String>>], cell: usize) -> String {
+    let mut at = vec![0usize; layout.structure.factors.len()];
+    b.levels_of_cell(cell, &mut at);
+    describe(layout, labels, layout.structure.all_factors(), &at)
+}
+
+/// Mean squares and their parts for data in cell order: sums of squares, mean squares and
+/// the grand mean. Shared with `simulate`, whose data sets go through the same numbers.
+pub fn anova_numbers(b: &Balanced, y: &[f64]) -> (Vec<f64>, Vec<f64>, f64) {
+    let n = y.len() as f64;
+    let centre = y.iter().sum::<f64>() / n;
+    let mut totals = vec![0.0; b.cells()];
+    let within = cell_summaries(y, b.replicates(), centre, &mut totals);
+    let terms = b.df().len();
+    let mut ss = vec![0.0; terms];
+    b.sums_of_squares(&totals, within, &mut b.scratch(), &mut ss);
+    let mut ms = vec![0.0; terms];
+    b.mean_squares(&ss, &mut ms);
+    (ss, ms, centre)
+}
+
+/// Method-of-moments estimates of every component (see the module notes): `None` where
+/// a mean square the solution needs does not exist.
+pub fn moment_estimates(a: &Analysis, ms: &[f64]) -> Vec<Option<f64>> {
+    let terms = &a.model.terms;
+    let mut order: Vec<usize> = (0..terms.len()).collect();
+    order.sort_by_key(|&t| std::cmp::Reverse(terms[t].subscripts().count_ones()));
+    let mut theta: Vec<Option<f64>> = vec![None; terms.len()];
+    for t in order {
+        if a.df[t] == 0 || !ms[t].is_finite() {
+            continue;
+        }
+        let mut rest = ms[t];
+        let mut own = 0.0;
+        let mut ok = true;
+        for (u, c) in &a.ems.rows[t] {
+            if *u == t {
+                own = to_f64(c);
+            } else {
+                match theta[*u] {
+                    Some(v) => rest -= to_f64(c) * v,
+                    None => ok = false,
+                }
+            }
+        }
+        if ok && own > 0.0 {
+            theta[t] = Some(rest / own);
+        }
+    }
+    theta
+}
+
+/// Runs the analysis of balanced observations under the layout's convention.
+pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<AnalyzeReport, Error> {
+    let a = Analysis::new(layout)?;
+    let s = &layout.structure;
+    let b = Balanced::new(&a.model, &layout.levels)?;
+    let (ss, ms, grand_mean) = anova_numbers(&b, &data.y);
+    let labels: Vec<String> = a.model.terms.iter().map(|t| t.label(s)).collect();
+    let mut notes = Vec::new();
+
+    let terms: Vec<AnovaRow> = a
+        .model
+        .terms
+        .iter()
+        .enumerate()
+        .map(|(t, term)| {
+            let test = a.tests[t].as_ref().map(|e| {
+                let denominator = e
+                    .denominator
+                    .iter()
+                    .map(|&(v, w)| DenominatorPart {
+                        term: labels[v].clone(),
+                        coefficient: crate::check::Coefficient::Exact(w),
+                    })
+                    .collect();
+                let mut out = AnovaTest {
+                    verdict: e.verdict,
+                    denominator,
+                    denominator_ms: None,
+                    denominator_df: None,
+                    f: None,
+                    p: None,
+                };
+                if !e.verdict.is_testable() {
+                    return out;
+                }
+                let d: f64 = e.denominator.iter().map(|(v, w)| to_f64(w) * ms[*v]).sum();
+                out.denominator_ms = Some(d);
+                let df2 = match e.verdict {
+                    Verdict::Exact => Some(a.df[e.denominator[0].0] as f64),
+                    _ => satterthwaite(
+                        &e.denominator
+                            .iter()
+                            .map(|&(v, w)| (to_f64(&w), ms[v], a.df[v]))
+                            .collect::<Vec<_>>(),
+                    ),
+                };
+                out.denominator_df = df2;
+                if d > 0.0 && d.is_finite() {
+                    let f = ms[t] / d;
+                    out.f = Some(f);
+                    if let Some(df2) = df2 {
+                        out.p = Some(dist::f_sf(f, a.df[t] as f64, df2));
+                    }
+                } else if e.verdict == Verdict::Synthetic {
+                    notes.push(format!(
+                        "{}: the synthetic denominator is {} for these data (a combination of mean squares with negative weights), so there is no quasi-F; the terms it subtracts are large next to those it adds",
+                        labels[t],
+                        crate::render::num(d)
+                    ));
+                } else {
+                    notes.push(format!(
+                        "{}: its error term's mean square is zero for these data, so there is no F",
+                        labels[t]
+                    ));
+                }
+                out
+            });
+            AnovaRow {
+                label: labels[t].clone(),
+                kind: a.model.kinds[t],
+                residual: term.is_residual(),
+                df: a.df[t],
+                ss: ss[t],
+                ms: (a.df[t] > 0).then_some(ms[t]),
+                test,
+            }
+        })
+        .collect();
+
+    let theta = moment_estimates(&a, &ms);
+    let components: Vec<ComponentEstimate> = (0..a.model.terms.len())
+        .filter(|&t| a.model.kinds[t] == Kind::Random)
+        .map(|t| {
+            let estimate = theta[t];
+            let negative = estimate.is_some_and(|v| v < 0.0);
+            ComponentEstimate {
+                term: labels[t].clone(),
+                symbol: symbol(&a.model, t),
+                estimate,
+                sd: estimate.filter(|v| *v >= 0.0).map(f64::sqrt),
+                negative,
+            }
+        })
+        .collect();
+    let negatives: Vec<&str> = components
+        .iter()
+        .filter(|c| c.negative)
+        .map(|c| c.term.as_str())
+        .collect();
+    if !negatives.is_empty() {
+        notes.push(format!(
+            "negative variance component estimate for {}: {NEGATIVE_ADVICE}",
+            negatives.join(", ")
+        ));
+    }
+    let missing: Vec<&str> = components
+        .iter()
+        .filter(|c| c.estimate.is_none())
+        .map(|c| c.term.as_str())
+        .collect();
+    if !missing.is_empty() {
+        notes.push(format!(
+            "not estimable from these mean squares: {} (a term with 0 df, or one whose expected mean square needs such a term)",
+            missing.join(", ")
+        ));
+    }
+
+    let means = means_tables(layout, &a, &b, data, grand_mean);
+    Ok(AnalyzeReport {
+        name: layout.name.clone(),
+        convention: s.convention,
+        data: data.path.clone(),
+        response: data.response.clone(),
+        observations: layout.observations(),
+        alpha,
+        grand_mean,
+        terms,
+        components,
+        means,
+        notes,
+    })
+}
+
+/// Means over the cells of every fixed term (its live and nesting factors).
+fn means_tables(
+    layout: &Layout,
+    a: &Analysis,
+    b: &Balanced,
+    data: &Observations,
+    grand_mean: f64,
+) -> Vec<MeansTable> {
+    let s = &layout.structure;
+    let mut totals = vec![0.0; b.cells()];
+    cell_summaries(&data.y, b.replicates(), grand_mean, &mut totals);
+    let levels = b.levels();
+    a.model
+        .terms
+        .iter()
+        .enumerate()
+        .filter(|(t, term)| a.model.kinds[*t] == Kind::Fixed && !term.is_residual())
+        .map(|(_, term)| {
+            let mask = term.subscripts();
+            let (sums, per) = b.margin_totals(mask, &totals);
+            let factors: Vec<usize> = (0..s.factors.len())
+                .filter(|j| mask & (1 << j) != 0)
+                .collect();
+            let mut at = vec![0usize; levels.len()];
+            let rows = sums
+                .iter()
+                .enumerate()
+                .map(|(i, total)| {
+                    let mut rest = i;
+                    for &j in factors.iter().rev() {
+                        at[j] = rest % levels[j];
+                        rest /= levels[j];
+                    }
+                    let labels = factors
+                        .iter()
+                        .map(|&j| {
+                            let nest = index_in(levels, s.factors[j].ancestors, &at);
+                            data.labels[j][nest][at[j]].clone()
+                        })
+                        .collect();
+                    MeanRow {
+                        levels: labels,
+                        mean: grand_mean + total / per as f64,
+                    }
+                })
+                .collect();
+            MeansTable {
+                term: term.label(s),
+                factors: factors.iter().map(|&j| s.factors[j].name.clone()).collect(),
+                per_mean: per as u64,
+                rows,
+            }
+        })
+        .collect()
+}

@@ -1,0 +1,318 @@
+//! Rendering of `analyze` results.
+
+use super::{Format, csv_table, json, markdown_table, text_table};
+use crate::analyze::{AnalyzeReport, AnovaRow, NEGATIVE_ADVICE};
+use crate::errorterm::Verdict;
+use crate::layout::Kind;
+
+/// The caution that goes with an analysis people will act on.
+pub const ANALYSIS_CAUTION: &str = "The tests take the layout's error terms as given: they are right only if the layout file describes how the experiment was really run (what was randomised to what, what is nested in what). Have a statistician review conclusions that carry real cost or risk.";
+
+/// A number to about four significant digits, in plain or scientific notation.
+pub fn sig(x: f64) -> String {
+    if !x.is_finite() {
+        return "-".into();
+    }
+    if x == 0.0 {
+        return "0".into();
+    }
+    let a = x.abs();
+    if !(1e-3..1e7).contains(&a) {
+        return format!("{x:.3e}");
+    }
+    let digits = (3 - a.log10().floor() as i32).max(0) as usize;
+    format!("{x:.digits$}")
+}
+
+/// A p-value to four decimals, or `< 0.0001`.
+pub fn p_text(p: f64) -> String {
+    if !p.is_finite() {
+        "-".into()
+    } else if p < 1e-4 {
+        "< 0.0001".into()
+    } else {
+        format!("{p:.4}")
+    }
+}
+
+fn opt(x: Option<f64>, f: fn(f64) -> String) -> String {
+    x.map_or("-".into(), f)
+}
+
+fn over(row: &AnovaRow) -> String {
+    match &row.test {
+        None => "-".into(),
+        Some(t) => match t.verdict {
+            Verdict::Exact => t.denominator[0].term.clone(),
+            Verdict::Synthetic => {
+                let parts: Vec<(String, crate::check::Coefficient)> = t
+                    .denominator
+                    .iter()
+                    .map(|d| (d.term.clone(), d.coefficient))
+                    .collect();
+                crate::check::denominator_words(&parts)
+            }
+            Verdict::Untestable => "none (untestable)".into(),
+            Verdict::NotEstimable => "none (0 df)".into(),
+        },
+    }
+}
+
+const HEADER: [&str; 8] = [
+    "term",
+    "df",
+    "sum of squares",
+    "mean square",
+    "tested over",
+    "F",
+    "den. df",
+    "p",
+];
+
+fn rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
+    r.terms
+        .iter()
+        .map(|row| {
+            let t = row.test.as_ref();
+            let f = t.and_then(|t| t.f);
+            let quasi = t.is_some_and(|t| t.verdict == Verdict::Synthetic);
+            vec![
+                row.label.clone(),
+                row.df.to_string(),
+                sig(row.ss),
+                opt(row.ms, sig),
+                over(row),
+                match f {
+                    Some(f) if quasi => format!("{} (quasi)", sig(f)),
+                    Some(f) => sig(f),
+                    None => "-".into(),
+                },
+                opt(t.and_then(|t| t.denominator_df), sig),
+                opt(t.and_then(|t| t.p), p_text),
+            ]
+        })
+        .collect()
+}
+
+const CSV_HEADER: [&str; 11] = [
+    "term",
+    "kind",
+    "df",
+    "sum_of_squares",
+    "mean_square",
+    "tested_over",
+    "verdict",
+    "f",
+    "denominator_df",
+    "p",
+    "variance_component",
+];
+
+fn plain(x: Option<f64>) -> String {
+    x.filter(|v| v.is_finite())
+        .map_or(String::new(), |v| v.to_string())
+}
+
+fn csv_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
+    r.terms
+        .iter()
+        .map(|row| {
+            let t = row.test.as_ref();
+            let component = r
+                .components
+                .iter()
+                .find(|c| c.term == row.label)
+                .and_then(|c| c.estimate);
+            vec![
+                row.label.clone(),
+                kind(row.kind).into(),
+                row.df.to_string(),
+                row.ss.to_string(),
+                plain(row.ms),
+                if t.is_some() {
+                    over(row)
+                } else {
+                    String::new()
+                },
+                t.map_or(String::new(), |t| t.verdict.name().into()),
+                plain(t.and_then(|t| t.f)),
+                plain(t.and_then(|t| t.denominator_df)),
+                plain(t.and_then(|t| t.p)),
+                plain(component),
+            ]
+        })
+        .collect()
+}
+
+fn kind(k: Kind) -> &'static str {
+    match k {
+        Kind::Fixed => "fixed",
+        Kind::Random => "random",
+    }
+}
+
+fn component_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
+    r.components
+        .iter()
+        .map(|c| {
+            vec![
+                c.symbol.clone(),
+                c.term.clone(),
+                opt(c.estimate, sig),
+                opt(c.sd, sig),
+                if c.negative {
+                    "NEGATIVE".into()
+                } else if c.estimate.is_none() {
+                    "not estimable".into()
+                } else {
+                    String::new()
+                },
+            ]
+        })
+        .collect()
+}
+
+const COMPONENT_HEADER: [&str; 5] = ["component", "term", "estimate", "sd", "flag"];
+
+fn title(r: &AnalyzeReport) -> String {
+    if r.name.is_empty() {
+        "Layout".into()
+    } else {
+        r.name.clone()
+    }
+}
+
+fn explanations(r: &AnalyzeReport) -> Vec<String> {
+    let mut out = vec![format!(
+        "Each term is tested over its planned error term ({} convention); p is the upper tail of the F distribution.",
+        r.convention.name()
+    )];
+    if r.terms.iter().any(|t| {
+        t.test
+            .as_ref()
+            .is_some_and(|x| x.verdict == Verdict::Synthetic)
+    }) {
+        out.push("A quasi-F divides by a combination of mean squares; its den. df are Satterthwaite's (1946) approximation from these mean squares, so its p is approximate.".into());
+    }
+    out
+}
+
+pub fn render(r: &AnalyzeReport, format: Format) -> String {
+    match format {
+        Format::Json => json(r),
+        Format::Csv => csv_table(&CSV_HEADER, csv_rows(r)),
+        Format::Markdown => {
+            let mut out = format!(
+                "## {}: analysis of variance of {}\n\n{} observations from `{}`, {} convention.\n\n",
+                title(r),
+                r.response,
+                r.observations,
+                r.data,
+                r.convention.name()
+            );
+            out.push_str(&markdown_table(&HEADER, rows(r)));
+            out.push('\n');
+            for e in explanations(r) {
+                out.push_str(&format!("{e}\n"));
+            }
+            if !r.components.is_empty() {
+                out.push_str("\n### Variance components (method of moments)\n\n");
+                out.push_str(&markdown_table(&COMPONENT_HEADER, component_rows(r)));
+            }
+            out.push_str(&format!(
+                "\n### Means\n\nGrand mean {}.\n",
+                sig(r.grand_mean)
+            ));
+            for m in &r.means {
+                out.push_str(&format!(
+                    "\n{} ({} observations per mean)\n\n",
+                    m.term, m.per_mean
+                ));
+                let mut header: Vec<&str> = m.factors.iter().map(String::as_str).collect();
+                header.push("mean");
+                out.push_str(&markdown_table(&header, mean_rows(m)));
+            }
+            if !r.notes.is_empty() {
+                out.push_str("\n### What needs attention\n\n");
+                for n in &r.notes {
+                    out.push_str(&format!("- {n}\n"));
+                }
+            }
+            out.push_str(&format!("\n{ANALYSIS_CAUTION}\n"));
+            out
+        }
+        Format::Text => {
+            let mut out = format!(
+                "{}: analysis of variance of {} ({}), {} observations, {} convention\n\n",
+                title(r),
+                r.response,
+                r.data,
+                r.observations,
+                r.convention.name()
+            );
+            out.push_str(&text_table(&HEADER, rows(r)));
+            out.push('\n');
+            for e in explanations(r) {
+                out.push_str(&format!("{e}\n"));
+            }
+            if !r.components.is_empty() {
+                out.push_str("\nVariance components, by the method of moments from the expected mean squares:\n\n");
+                out.push_str(&text_table(&COMPONENT_HEADER, component_rows(r)));
+                if r.components.iter().any(|c| c.negative) {
+                    out.push_str(&format!("  NEGATIVE: {NEGATIVE_ADVICE}.\n"));
+                }
+            }
+            out.push_str(&format!("\nGrand mean {}.\n", sig(r.grand_mean)));
+            for m in &r.means {
+                out.push_str(&format!(
+                    "\nMeans of {} ({} observations per mean):\n\n",
+                    m.term, m.per_mean
+                ));
+                let mut header: Vec<&str> = m.factors.iter().map(String::as_str).collect();
+                header.push("mean");
+                out.push_str(&text_table(&header, mean_rows(m)));
+            }
+            if !r.notes.is_empty() {
+                out.push_str("\nWhat needs attention:\n");
+                for n in &r.notes {
+                    out.push_str(&format!("  - {n}\n"));
+                }
+            }
+            out.push_str(&format!("\n{ANALYSIS_CAUTION}\n"));
+            out
+        }
+    }
+}
+
+fn mean_rows(m: &crate::analyze::MeansTable) -> Vec<Vec<String>> {
+    m.rows
+        .iter()
+        .map(|row| {
+            let mut cells = row.levels.clone();
+            cells.push(sig(row.mean));
+            cells
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn numbers_to_four_significant_digits() {
+        for (x, want) in [
+            (0.0, "0"),
+            (1234.5678, "1235"),
+            (12.345678, "12.35"),
+            (0.012346, "0.01235"),
+            (0.00012346, "1.235e-4"),
+            (-3.5, "-3.500"),
+            (f64::NAN, "-"),
+        ] {
+            assert_eq!(sig(x), want, "{x}");
+        }
+        assert_eq!(p_text(0.00001), "< 0.0001");
+        assert_eq!(p_text(0.04567), "0.0457");
+    }
+}

@@ -1,0 +1,390 @@
+//! The report as a self-contained HTML document (inline SVG, inline CSS, no scripts,
+//! A4 print rules) or as Markdown with its figures written beside it.
+
+use std::fmt::Write;
+
+use super::check::{CAUTION, ems_text, tested_over};
+use super::num;
+use crate::layout::Convention;
+use crate::report::Report;
+use crate::report::svg::esc;
+
+fn convention_note(c: Convention) -> &'static str {
+    match c {
+        Convention::Restricted => {
+            "restricted model: mixed interaction effects sum to zero over each fixed subscript (Cornfield and Tukey 1956, Annals of Mathematical Statistics 27:907-949)"
+        }
+        Convention::Unrestricted => {
+            "unrestricted model: random interaction effects independent, with no sum-to-zero constraint (as in Searle's texts, e.g. Searle, Casella and McCulloch 1992, Variance Components)"
+        }
+    }
+}
+
+fn opt(x: Option<f64>, digits: usize) -> String {
+    x.map_or("-".into(), |v| format!("{v:.digits$}"))
+}
+
+fn df_opt(x: Option<f64>) -> String {
+    x.map_or("-".into(), num)
+}
+
+const STYLE: &str = "body{font-family:Georgia,serif;max-width:46em;margin:2em auto;padding:0 1em;color:#000;background:#fff;line-height:1.4}
+h1{font-size:1.6em}h2{font-size:1.25em;border-bottom:1px solid #000;margin-top:1.6em}h3{font-size:1.05em}
+table{border-collapse:collapse;margin:0.6em 0;font-size:0.9em}th,td{border:1px solid #000;padding:0.2em 0.45em;text-align:left;vertical-align:top}
+th{font-weight:bold}td.n{text-align:right}figure{margin:0.8em 0;page-break-inside:avoid}figcaption{font-size:0.85em}
+.caution{border:2px solid #000;padding:0.6em}code{font-size:0.9em}svg{max-width:100%;height:auto}
+@page{size:A4;margin:18mm}@media print{body{max-width:none;margin:0}h2{page-break-after:avoid}table{page-break-inside:avoid}}";
+
+/// The report as one HTML file.
+pub fn html(r: &Report) -> String {
+    let mut h = String::new();
+    let _ = write!(
+        h,
+        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\"/>\n<title>{}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n<h1>{}</h1>\n",
+        esc(&r.title),
+        esc(&r.title)
+    );
+    let _ = write!(
+        h,
+        "<p class=\"caution\"><strong>Caution.</strong> {}</p>\n",
+        esc(CAUTION)
+    );
+    h.push_str("<h2>The layout</h2>\n");
+    for line in &r.description {
+        let _ = writeln!(h, "<p>{}</p>", esc(line));
+    }
+    let _ = write!(
+        h,
+        "<figure>{}<figcaption>Figure 1. The factors and how they are nested: an arrow points from a factor to each factor nested within it; factors joined by no arrow are crossed.</figcaption></figure>\n",
+        r.diagram
+    );
+    h.push_str("<table>\n<tr><th>factor</th><th>kind</th><th>levels</th><th>nested in</th><th>population</th></tr>\n");
+    for f in &r.factors {
+        let _ = writeln!(
+            h,
+            "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td></tr>",
+            esc(&f.name),
+            f.kind,
+            f.levels,
+            if f.within.is_empty() {
+                "-".into()
+            } else {
+                esc(&f.within)
+            },
+            f.population.map_or("-".into(), |p| p.to_string())
+        );
+    }
+    h.push_str("</table>\n");
+
+    h.push_str("<h2>Expected mean squares</h2>\n");
+    let _ = writeln!(
+        h,
+        "<p>Convention: the {}. Expected mean squares follow the rules of the tableau of subscripts; σ² is a variance component, κ² the quadratic component of a fixed term (the sum of its squared effects over its df).</p>",
+        esc(convention_note(r.check.convention))
+    );
+    h.push_str("<table>\n<tr><th>term</th><th>kind</th><th>df</th><th>expected mean square</th><th>tested over</th><th>den. df</th><th>verdict</th></tr>\n");
+    for t in &r.check.terms {
+        let (over, ddf, verdict) = match &t.test {
+            Some(x) => (
+                if x.verdict.is_testable() {
+                    tested_over(x)
+                } else {
+                    "none".into()
+                },
+                df_opt(x.denominator_df),
+                x.verdict.name().to_string(),
+            ),
+            None => ("-".into(), "-".into(), "-".into()),
+        };
+        let _ = writeln!(
+            h,
+            "<tr><td>{}</td><td>{}</td><td class=\"n\">{}</td><td>{}</td><td>{}</td><td class=\"n\">{}</td><td>{}</td></tr>",
+            esc(&t.label),
+            if t.kind == crate::layout::Kind::Fixed {
+                "fixed"
+            } else {
+                "random"
+            },
+            t.df,
+            esc(&ems_text(t)),
+            esc(&over),
+            ddf,
+            verdict
+        );
+    }
+    h.push_str("</table>\n");
+    if r.differences.is_empty() {
+        let _ = writeln!(
+            h,
+            "<p>Under the {} convention every term would be tested over the same error term.</p>",
+            r.other_convention.name()
+        );
+    } else {
+        let _ = writeln!(
+            h,
+            "<p>Under the {} convention these terms would be tested differently:</p>\n<ul>",
+            r.other_convention.name()
+        );
+        for d in &r.differences {
+            let _ = writeln!(
+                h,
+                "<li>{}: over {} here, over {} there.</li>",
+                esc(&d.label),
+                esc(&d.here),
+                esc(&d.there)
+            );
+        }
+        h.push_str("</ul>\n");
+    }
+    if !r.check.findings.is_empty() {
+        h.push_str("<h3>What needs attention</h3>\n<ul>\n");
+        for f in &r.check.findings {
+            let _ = writeln!(h, "<li>{}</li>", esc(f));
+        }
+        h.push_str("</ul>\n");
+    }
+
+    h.push_str("<h2>The tests that matter</h2>\n");
+    let mut figure = 2;
+    for k in &r.key_terms {
+        let _ = writeln!(h, "<h3>{}</h3>", esc(&k.label));
+        let _ = writeln!(
+            h,
+            "<p>Verdict: <strong>{}</strong>; tested over {}, with {} denominator df. {}</p>",
+            k.verdict,
+            esc(&k.tested_over),
+            df_opt(k.denominator_df),
+            esc(&k.why)
+        );
+        let _ = writeln!(
+            h,
+            "<p>Power at alpha = {}: {}. Smallest effect found with power {} ({}): {}.</p>",
+            r.check.alpha,
+            opt(k.power, 3),
+            r.check.target_power,
+            k.scale,
+            opt(k.min_detectable, 3)
+        );
+        if let Some(svg) = &k.curve {
+            let _ = writeln!(
+                h,
+                "<figure>{svg}<figcaption>Figure {figure}. Power of the {} test against the size of the effect, under the planning values.</figcaption></figure>",
+                esc(&k.label)
+            );
+            figure += 1;
+        }
+    }
+    if let Some(c) = &r.check.cost {
+        h.push_str("<h2>What it costs</h2>\n<table>\n<tr><th>item</th><th>units</th><th>per unit</th><th>cost</th></tr>\n");
+        if c.overhead > 0.0 {
+            let _ = writeln!(
+                h,
+                "<tr><td>overhead</td><td></td><td></td><td class=\"n\">{}</td></tr>",
+                num(c.overhead)
+            );
+        }
+        for l in &c.breakdown {
+            let _ = writeln!(
+                h,
+                "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>",
+                esc(&l.term),
+                l.units,
+                num(l.per_unit),
+                num(l.cost)
+            );
+        }
+        let _ = writeln!(
+            h,
+            "<tr><th>total</th><td></td><td></td><th class=\"n\">{}</th></tr>\n</table>",
+            num(c.total)
+        );
+    }
+    for (heading, section, _) in &r.sections {
+        let _ = writeln!(h, "<h2>{}</h2>\n{section}", esc(heading));
+    }
+    h.push_str("<h2>Planning values and reproduction</h2>\n<table>\n");
+    for (k, v) in &r.planning {
+        let _ = writeln!(h, "<tr><td>{}</td><td>{}</td></tr>", esc(k), esc(v));
+    }
+    h.push_str("</table>\n");
+    for n in &r.check.planning_notes {
+        let _ = writeln!(h, "<p>Note: {}</p>", esc(n));
+    }
+    let _ = writeln!(
+        h,
+        "<p>Made by emsplan {}. To reproduce this report: <code>{}</code></p>",
+        r.version,
+        esc(&r.command_line)
+    );
+    let _ = writeln!(
+        h,
+        "<p class=\"caution\">{}</p>\n</body>\n</html>",
+        esc(CAUTION)
+    );
+    h
+}
+
+/// The report as Markdown. Figures are returned separately as (file name, SVG) for the
+/// caller to write beside the Markdown file; the text links to them by name.
+pub fn markdown(r: &Report, figure_prefix: &str) -> (String, Vec<(String, String)>) {
+    let mut m = String::new();
+    let mut figures = Vec::new();
+    let _ = writeln!(m, "# {}\n\n> **Caution.** {CAUTION}\n", r.title);
+    m.push_str("## The layout\n\n");
+    for line in &r.description {
+        let _ = writeln!(m, "{line}\n");
+    }
+    let name = format!("{figure_prefix}layout.svg");
+    let _ = writeln!(
+        m,
+        "![Figure 1. The factors and how they are nested: an arrow points from a factor to each factor nested within it; factors joined by no arrow are crossed.]({name})\n"
+    );
+    figures.push((name, r.diagram.clone()));
+    m.push_str("| factor | kind | levels | nested in | population |\n|---|---|---|---|---|\n");
+    for f in &r.factors {
+        let _ = writeln!(
+            m,
+            "| {} | {} | {} | {} | {} |",
+            f.name,
+            f.kind,
+            f.levels,
+            if f.within.is_empty() { "-" } else { &f.within },
+            f.population.map_or("-".into(), |p| p.to_string())
+        );
+    }
+    let _ = writeln!(
+        m,
+        "\n## Expected mean squares\n\nConvention: the {}.\n",
+        convention_note(r.check.convention)
+    );
+    m.push_str(&super::check::render(&r.check, super::Format::Markdown).replacen("## ", "### ", 1));
+    if r.differences.is_empty() {
+        let _ = writeln!(
+            m,
+            "\nUnder the {} convention every term would be tested over the same error term.\n",
+            r.other_convention.name()
+        );
+    } else {
+        let _ = writeln!(
+            m,
+            "\nUnder the {} convention these terms would be tested differently:\n",
+            r.other_convention.name()
+        );
+        for d in &r.differences {
+            let _ = writeln!(
+                m,
+                "- {}: over {} here, over {} there.",
+                d.label, d.here, d.there
+            );
+        }
+        m.push('\n');
+    }
+    m.push_str("## The tests that matter\n\n");
+    for (i, k) in r.key_terms.iter().enumerate() {
+        let _ = writeln!(
+            m,
+            "### {}\n\nVerdict: **{}**; tested over {}, with {} denominator df. {}\n\nPower at alpha = {}: {}. Smallest effect found with power {} ({}): {}.\n",
+            k.label,
+            k.verdict,
+            k.tested_over,
+            df_opt(k.denominator_df),
+            k.why,
+            r.check.alpha,
+            opt(k.power, 3),
+            r.check.target_power,
+            k.scale,
+            opt(k.min_detectable, 3)
+        );
+        if let Some(svg) = &k.curve {
+            let name = format!("{figure_prefix}power-{}.svg", i + 1);
+            let _ = writeln!(
+                m,
+                "![Power of the {} test against the size of the effect.]({name})\n",
+                k.label
+            );
+            figures.push((name, svg.clone()));
+        }
+    }
+    for (heading, _, section) in &r.sections {
+        let _ = writeln!(m, "## {heading}\n\n{section}\n");
+    }
+    m.push_str("## Planning values and reproduction\n\n| value | setting |\n|---|---|\n");
+    for (k, v) in &r.planning {
+        let _ = writeln!(m, "| {k} | {v} |");
+    }
+    let _ = writeln!(
+        m,
+        "\nMade by emsplan {}. To reproduce this report: `{}`\n\n> {CAUTION}",
+        r.version, r.command_line
+    );
+    (m, figures)
+}
+
+/// The Monte Carlo confirmation as a report section: (heading, HTML, Markdown).
+pub fn monte_carlo_section(r: &crate::simulate::SimulateReport) -> (String, String, String) {
+    let header = [
+        "term",
+        "E(MS)",
+        "mean simulated MS",
+        "rejections under the null",
+        "analytic power",
+        "simulated power",
+        "agrees?",
+    ];
+    let rate = |x: &Option<crate::simulate::Rate>| {
+        x.as_ref().map_or("-".to_string(), |r| {
+            format!("{:.3} [{:.3}, {:.3}]", r.rate, r.low, r.high)
+        })
+    };
+    let rows: Vec<Vec<String>> = r
+        .terms
+        .iter()
+        .map(|t| {
+            let test = t.test.as_ref();
+            let flags = t.ms_flag || test.is_some_and(|x| x.null_flag || x.power_flag);
+            vec![
+                t.label.clone(),
+                format!("{:.4}", t.expected_ms),
+                t.mean_ms.map_or("-".into(), |m| format!("{m:.4}")),
+                test.map_or("-".into(), |x| rate(&x.null)),
+                test.and_then(|x| x.analytic_power)
+                    .map_or("-".into(), |p| format!("{p:.3}")),
+                test.map_or("-".into(), |x| rate(&x.power)),
+                if flags {
+                    "NO: see flags".into()
+                } else {
+                    "yes".into()
+                },
+            ]
+        })
+        .collect();
+    let intro = format!(
+        "{} simulated data sets (seed {}), under the {} convention; rejection rates at alpha = {} with {:.0}% Wilson score intervals. Under the null each term's own component is set to zero, so its rate should be near alpha; at the planning values it should be near the analytic power.",
+        r.runs,
+        r.seed,
+        r.convention.name(),
+        r.alpha,
+        100.0 * r.confidence
+    );
+    let mut html = format!("<p>{}</p>\n<table>\n<tr>", esc(&intro));
+    for h in header {
+        let _ = write!(html, "<th>{}</th>", esc(h));
+    }
+    html.push_str("</tr>\n");
+    for row in &rows {
+        html.push_str("<tr>");
+        for c in row {
+            let _ = write!(html, "<td>{}</td>", esc(c));
+        }
+        html.push_str("</tr>\n");
+    }
+    html.push_str("</table>\n");
+    for n in &r.notes {
+        let _ = writeln!(html, "<p>Note: {}</p>", esc(n));
+    }
+    let mut md = format!("{intro}\n\n{}", super::markdown_table(&header, rows));
+    for n in &r.notes {
+        let _ = write!(md, "\nNote: {n}\n");
+    }
+    ("Monte Carlo confirmation".into(), html, md)
+}
