@@ -646,7 +646,7 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
                     .iter()
                     .map(|&(v, w)| DenominatorPart {
                         term: labels[v].clone(),
-                        coefficient: w,
+                        coefficient: crate::check::Coefficient::Exact(w),
                     })
                     .collect();
                 let mut out = AnovaTest {

@@ -5,7 +5,7 @@ use serde::{Serialize, Serializer};
 
 use crate::ems::{Ems, Model, Rational};
 use crate::error::Error;
-use crate::errorterm::{ErrorTerm, Verdict, denominator_text, error_terms, weight_text};
+use crate::errorterm::{ErrorTerm, Verdict, error_terms, weight_text};
 use crate::goal::Goal;
 use crate::layout::{Convention, Kind, Layout};
 use crate::planning::{Cost, PlanningValues, cost, plan_tests};
@@ -26,6 +26,119 @@ pub struct CheckReport {
     pub terms: Vec<TermReport>,
     /// Plain-words findings: what cannot be tested, and why.
     pub findings: Vec<String>,
+    /// For an unbalanced layout: which sums of squares, what was removed, what follows.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub unbalanced: Option<crate::unbalanced::report::Summary>,
+}
+
+/// A coefficient of an expected mean square or a denominator weight: exact in balanced
+/// layouts, a float from the synthesis in unbalanced ones.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Coefficient {
+    Exact(Rational),
+    Approximate(f64),
+}
+
+impl Coefficient {
+    pub fn value(&self) -> f64 {
+        match self {
+            Coefficient::Exact(r) => *r.numer() as f64 / *r.denom() as f64,
+            Coefficient::Approximate(x) => *x,
+        }
+    }
+
+    /// A float within 1e-9 (relative) of a whole number, as that number.
+    fn whole(x: f64) -> Option<i64> {
+        let r = x.round();
+        ((x - r).abs() <= 1e-9 * x.abs().max(1.0) && r.abs() < 1e15).then_some(r as i64)
+    }
+
+    /// The exact fraction, for a balanced layout's coefficient.
+    pub fn exact(&self) -> Option<Rational> {
+        match self {
+            Coefficient::Exact(r) => Some(*r),
+            Coefficient::Approximate(_) => None,
+        }
+    }
+
+    pub fn is_one(&self) -> bool {
+        match self {
+            Coefficient::Exact(r) => *r == Rational::from_integer(1),
+            Coefficient::Approximate(x) => Self::whole(*x) == Some(1),
+        }
+    }
+
+    pub fn is_negative(&self) -> bool {
+        self.value() < 0.0
+    }
+
+    /// `3`, `9/5`, or a float to four significant digits (`11.67`, `0.02714`).
+    pub fn text(&self) -> String {
+        match self {
+            Coefficient::Exact(r) => weight_text(r),
+            Coefficient::Approximate(x) => {
+                if let Some(w) = Self::whole(*x) {
+                    return w.to_string();
+                }
+                let digits = (3 - x.abs().log10().floor() as i32).clamp(0, 12) as usize;
+                let t = format!("{x:.digits$}");
+                if t.contains('.') {
+                    t.trim_end_matches('0').trim_end_matches('.').to_string()
+                } else {
+                    t
+                }
+            }
+        }
+    }
+
+    /// The magnitude, same kind.
+    pub fn abs(&self) -> Coefficient {
+        match self {
+            Coefficient::Exact(r) => Coefficient::Exact(num_traits::Signed::abs(r)),
+            Coefficient::Approximate(x) => Coefficient::Approximate(x.abs()),
+        }
+    }
+}
+
+impl Serialize for Coefficient {
+    fn serialize<S: Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        match self {
+            Coefficient::Exact(r) => number(r, s),
+            Coefficient::Approximate(x) => match Self::whole(*x) {
+                Some(w) => s.serialize_i64(w),
+                None => s.serialize_f64(*x),
+            },
+        }
+    }
+}
+
+/// A denominator written out: `bench(light)`, or `MS[a x b] + MS[a x c] - MS[a x b x c]`,
+/// or with float weights `0.9713·MS[chamber(light)] + 0.02871·MS[residual]`.
+pub fn denominator_words(parts: &[(String, Coefficient)]) -> String {
+    if let [(label, w)] = parts
+        && w.is_one()
+    {
+        return label.clone();
+    }
+    parts
+        .iter()
+        .enumerate()
+        .map(|(k, (label, w))| {
+            let sign = match (k, w.is_negative()) {
+                (0, false) => "",
+                (0, true) => "-",
+                (_, false) => " + ",
+                (_, true) => " - ",
+            };
+            let mag = w.abs();
+            let mag = if mag.is_one() {
+                String::new()
+            } else {
+                format!("{}·", mag.text())
+            };
+            format!("{sign}{mag}MS[{label}]")
+        })
+        .collect()
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -44,8 +157,7 @@ pub struct TermReport {
 pub struct Component {
     /// The component's term label.
     pub component: String,
-    #[serde(serialize_with = "number")]
-    pub coefficient: Rational,
+    pub coefficient: Coefficient,
     /// The coefficient as an exact fraction, when it is not a whole number.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub exact: Option<String>,
@@ -74,8 +186,7 @@ pub struct TestReport {
 #[derive(Debug, Clone, Serialize)]
 pub struct DenominatorPart {
     pub term: String,
-    #[serde(serialize_with = "number")]
-    pub coefficient: Rational,
+    pub coefficient: Coefficient,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -145,6 +256,12 @@ pub fn check_with_goal(
 ) -> Result<CheckReport, Error> {
     let mut layout = layout.clone();
     layout.structure.convention = convention;
+    if !layout.is_balanced() {
+        if convention == Convention::Restricted {
+            return Err(Error::invalid(None, crate::layout::RESTRICTED_UNBALANCED));
+        }
+        return crate::unbalanced::report::check(&layout, plan, goal);
+    }
     let a = Analysis::new(&layout)?;
     let plans = plan_tests(&a.model, &a.ems, &a.df, &a.tests, plan, &layout.levels);
     let s = &layout.structure;
@@ -161,7 +278,7 @@ pub fn check_with_goal(
                 .iter()
                 .map(|&(c, coefficient)| Component {
                     component: labels[c].clone(),
-                    coefficient,
+                    coefficient: Coefficient::Exact(coefficient),
                     exact: (!coefficient.is_integer()).then(|| weight_text(&coefficient)),
                     symbol: symbol(model, c),
                 })
@@ -169,7 +286,9 @@ pub fn check_with_goal(
             // Trade notation: σ² first, then by growing coefficient, the term's own last.
             ems.sort_by(|x, y| {
                 let own = |c: &Component| c.component == labels[i];
-                (own(x), x.coefficient).cmp(&(own(y), y.coefficient))
+                own(x)
+                    .cmp(&own(y))
+                    .then(x.coefficient.value().total_cmp(&y.coefficient.value()))
             });
             let test = a.tests[i].as_ref().map(|e| {
                 let reason = explain(&layout, &a, i, e);
@@ -204,7 +323,7 @@ pub fn check_with_goal(
                         .iter()
                         .map(|&(v, w)| DenominatorPart {
                             term: labels[v].clone(),
-                            coefficient: w,
+                            coefficient: Coefficient::Exact(w),
                         })
                         .collect(),
                     denominator_df: match (e.verdict, &plans[i]) {
@@ -243,11 +362,12 @@ pub fn check_with_goal(
         planning_notes: planning_notes(&a.model, plan),
         terms,
         findings,
+        unbalanced: None,
     })
 }
 
 /// What the planning values leave out, in words.
-fn planning_notes(model: &Model, plan: &PlanningValues) -> Vec<String> {
+pub(crate) fn planning_notes(model: &Model, plan: &PlanningValues) -> Vec<String> {
     let s = &model.structure;
     if !plan.has_priors() {
         return vec![
@@ -312,11 +432,14 @@ fn explain(layout: &Layout, a: &Analysis, t: usize, e: &ErrorTerm) -> Option<Str
             ))
         }
         Verdict::Synthetic => {
-            let parts: Vec<(String, Rational)> =
-                e.denominator.iter().map(|&(v, w)| (label(v), w)).collect();
+            let parts: Vec<(String, Coefficient)> = e
+                .denominator
+                .iter()
+                .map(|&(v, w)| (label(v), Coefficient::Exact(w)))
+                .collect();
             Some(format!(
                 "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946) under the planning values; with few denominator df its real level and power can be far from the nominal ones, so confirm them with `emsplan simulate`",
-                denominator_text(&parts)
+                denominator_words(&parts)
             ))
         }
         Verdict::Untestable => {
@@ -371,7 +494,7 @@ fn one_level_factors(layout: &Layout, live: u32) -> String {
 }
 
 /// How a testable term misses the goal, in words (added to any other reason).
-fn shortfall(goal: &Goal, o: &Outcome, reason: Option<String>) -> String {
+pub(crate) fn shortfall(goal: &Goal, o: &Outcome, reason: Option<String>) -> String {
     let mut parts = Vec::new();
     if goal.exact_only && o.verdict != Verdict::Exact {
         parts.push("the goal asks for an exact F test".to_string());
@@ -405,7 +528,7 @@ fn shortfall(goal: &Goal, o: &Outcome, reason: Option<String>) -> String {
     }
 }
 
-fn repair_report(layout: &Layout, r: &Repair) -> RepairReport {
+pub(crate) fn repair_report(layout: &Layout, r: &Repair) -> RepairReport {
     RepairReport {
         change: r.change.describe(&layout.structure, layout),
         verdict: r.outcome.verdict,
@@ -419,7 +542,12 @@ fn repair_report(layout: &Layout, r: &Repair) -> RepairReport {
     }
 }
 
-fn finding(label: &str, verdict: Verdict, reason: &str, repairs: &[RepairReport]) -> String {
+pub(crate) fn finding(
+    label: &str,
+    verdict: Verdict,
+    reason: &str,
+    repairs: &[RepairReport],
+) -> String {
     let head = match verdict {
         Verdict::Untestable => format!("{label} cannot be tested: {reason}."),
         Verdict::NotEstimable => format!("{label} is not estimable: {reason}."),

@@ -218,6 +218,21 @@ pub fn main() -> ExitCode {
     }
 }
 
+/// Jobs that read balanced layouts only refuse one with cells removed, saying what does
+/// handle it.
+fn balanced_only(layout: &Layout, path: &std::path::Path, job: &str) -> Result<(), Error> {
+    if layout.is_balanced() {
+        return Ok(());
+    }
+    Err(Error::Invalid {
+        file: Some(path.display().to_string()),
+        line: layout.removed.first().and_then(|r| r.line),
+        message: format!(
+            "emsplan {job} handles balanced layouts only so far, and this one has cells removed ([[layout.remove]]): `emsplan check` and `emsplan compare` handle it; for {job}, use the layout without its removals"
+        ),
+    })
+}
+
 /// Runs a parsed command and returns what goes to stdout.
 pub fn run(cli: Cli) -> Result<String, Error> {
     match cli.command {
@@ -227,8 +242,14 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             planning,
             format,
         } => {
-            let Side { layout, plan, goal } = load_side(&layout, &planning)?;
+            let path = layout;
+            let Side { layout, plan, goal } = load_side(&path, &planning)?;
             let own = layout.structure.convention;
+            // Errors of the check itself (a convention an unbalanced layout does not
+            // have) name the file.
+            let check_with_goal = |l: &Layout, c: Convention, p: &PlanningValues, g: &Goal| {
+                check_with_goal(l, c, p, g).map_err(|e| e.in_file(&path))
+            };
             match convention {
                 Some(ConventionArg::Both) => {
                     let r = check_with_goal(&layout, Convention::Restricted, &plan, &goal)?;
@@ -274,6 +295,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             }
             let args = PlanningArgs { alpha, power: None };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
+            balanced_only(&layout, &layout_path, "simulate")?;
             let request = crate::simulate::Request {
                 seed,
                 runs,
@@ -306,6 +328,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 power: None,
             };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
+            balanced_only(&layout, &layout_path, "analyze")?;
             let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
             Ok(render::analyze::render(&report, format))
@@ -400,6 +423,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             planning,
         } => {
             let side = load_side(&layout, &planning)?;
+            balanced_only(&side.layout, &layout, "report")?;
             let mut report =
                 crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
             if crate::spec::read(&layout)?.0.search.is_some() {

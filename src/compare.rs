@@ -8,10 +8,11 @@ use crate::check::{CheckReport, TermReport, check_with_goal};
 use crate::error::Error;
 use crate::errorterm::Verdict;
 use crate::goal::Goal;
-use crate::layout::{Convention, Kind, Layout, UNBALANCED_NOT_YET};
+use crate::layout::{Convention, Kind, Layout, RESTRICTED_UNBALANCED, SumsOfSquares};
 use crate::planning::{CostModel, Effect, PlanningValues, check_probability};
 use crate::render::check::tested_over;
 use crate::term::{Mask, REPLICATE, parse_term_label};
+use crate::unbalanced::removal::{Removal, parse_cell};
 use crate::variant::{drop_factor, set_within};
 
 /// One change to the base layout, as given on the command line.
@@ -67,6 +68,33 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
             })?;
             let (layout, plan, gone) = drop_factor(&side.layout, &side.plan, f)
                 .map_err(|m| usage(format!("--drop {name}: {m}")))?;
+            // Removals name units within nests: they survive only when they name neither
+            // the layer left out nor a factor nested in it.
+            let mut removed = Vec::new();
+            for r in &side.layout.removed {
+                let touched =
+                    r.at.iter()
+                        .any(|&(g, _)| g == f || s.factors[g].ancestors & (1 << f) != 0);
+                if touched {
+                    return Err(usage(format!(
+                        "--drop {name}: the removal {} names {name} or a factor nested in it, so it would name other units without it; drop the layer in a copy of the file and give its removals there",
+                        r.describe(s)
+                    )));
+                }
+                removed.push(Removal {
+                    at: r
+                        .at
+                        .iter()
+                        .map(|&(g, i)| (if g > f { g - 1 } else { g }, i))
+                        .collect(),
+                    ..r.clone()
+                });
+            }
+            let mut layout = layout;
+            layout.sums_of_squares = side.layout.sums_of_squares;
+            let layout = layout
+                .with_removals(removed)
+                .map_err(|(_, m)| usage(format!("--drop {name}: {m}")))?;
             if !gone.is_empty() {
                 notes.push(format!(
                     "without {name}, these planning values no longer apply: {}",
@@ -93,7 +121,28 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
             };
             Ok((Side { layout, plan, goal }, notes))
         }
-        Edit::Remove(what) => Err(usage(format!("--remove {what}: {UNBALANCED_NOT_YET}"))),
+        Edit::Remove(what) => {
+            let bad = |m: String| usage(format!("--remove {what}: {m}"));
+            let l = &side.layout;
+            let r = parse_cell(&l.structure, &l.levels, what).map_err(bad)?;
+            let mut removed = l.removed.clone();
+            removed.push(r);
+            let mut layout = l.clone();
+            if layout.structure.convention == Convention::Restricted {
+                layout.structure.convention = Convention::Unrestricted;
+                notes.push(
+                    "with cells removed the layout is unbalanced, and the restricted convention is not defined there: the unrestricted model is used".into(),
+                );
+            }
+            let layout = layout.with_removals(removed).map_err(|(_, m)| bad(m))?;
+            Ok((
+                Side {
+                    layout,
+                    ..side.clone()
+                },
+                notes,
+            ))
+        }
         Edit::Set { key, value } => {
             let mut side = side.clone();
             let bad = |m: String| usage(format!("--set {key}={value}: {m}"));
@@ -123,8 +172,22 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
                             .map_err(|_| bad("alpha must be a number between 0 and 1".into()))
                             .and_then(|a| check_probability(a, "alpha").map_err(bad))?
                     }
+                    "sums_of_squares" => {
+                        layout.sums_of_squares = match value.as_str() {
+                            "sequential" => SumsOfSquares::Sequential,
+                            "type3" => SumsOfSquares::Type3,
+                            _ => {
+                                return Err(bad(
+                                    "the sums of squares are \"sequential\" or \"type3\"".into(),
+                                ));
+                            }
+                        }
+                    }
                     "convention" => {
                         layout.structure.convention = match value.as_str() {
+                            "restricted" if !layout.is_balanced() => {
+                                return Err(bad(RESTRICTED_UNBALANCED.into()));
+                            }
                             "restricted" => Convention::Restricted,
                             "unrestricted" => Convention::Unrestricted,
                             _ => {
@@ -147,7 +210,7 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
                     }
                     _ => {
                         return Err(bad(format!(
-                            "unknown key \"{key}\" (known: replicates, alpha, convention, omit, FACTOR.levels, FACTOR.kind, FACTOR.within, FACTOR.population, prior.TERM, effect.TERM, cost.TERM, cost.overhead)"
+                            "unknown key \"{key}\" (known: replicates, alpha, convention, sums_of_squares, omit, FACTOR.levels, FACTOR.kind, FACTOR.within, FACTOR.population, prior.TERM, effect.TERM, cost.TERM, cost.overhead)"
                         )));
                     }
                 },
@@ -224,7 +287,22 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
                                 })?;
                                 within |= 1 << j;
                             }
+                            let moved = layout.removed.iter().find(|r| {
+                                r.at.iter().any(|&(g, _)| {
+                                    g == f || layout.structure.factors[g].ancestors & (1 << f) != 0
+                                })
+                            });
+                            if let Some(r) = moved {
+                                return Err(bad(format!(
+                                    "the removal {} counts units of \"{factor}\" or of a factor nested in it within their nests, so a new nesting would name other units: change the nesting in a copy of the file and give its removals there",
+                                    r.describe(&s)
+                                )));
+                            }
+                            let removed = layout.removed.clone();
+                            let sums = layout.sums_of_squares;
                             layout = set_within(&layout, f, within).map_err(bad)?;
+                            layout.removed = removed;
+                            layout.sums_of_squares = sums;
                         }
                         "population" => {
                             layout.structure.factors[f].population = if value == "none" {
@@ -257,8 +335,12 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
                 layout.structure.convention,
             )
             .map_err(bad)?;
-            side.layout =
+            let mut rebuilt =
                 Layout::new(layout.name.clone(), structure, layout.levels.clone()).map_err(bad)?;
+            rebuilt.sums_of_squares = layout.sums_of_squares;
+            side.layout = rebuilt
+                .with_removals(layout.removed.clone())
+                .map_err(|(_, m)| bad(m))?;
             Ok((side, notes))
         }
     }
@@ -353,6 +435,28 @@ pub fn compare(
     notes: Vec<String>,
     convention: Option<Convention>,
 ) -> Result<Comparison, Error> {
+    let mut notes = notes;
+    // An unbalanced side is computed under the unrestricted model; so is the other, so
+    // that the two differ only in the changes.
+    let unbalanced = !base.layout.is_balanced() || !other.layout.is_balanced();
+    let convention = if unbalanced {
+        if convention == Some(Convention::Restricted) {
+            return Err(Error::Usage(format!(
+                "--convention restricted: {RESTRICTED_UNBALANCED}"
+            )));
+        }
+        if [base, other]
+            .iter()
+            .any(|x| x.layout.structure.convention == Convention::Restricted)
+        {
+            notes.push(
+                "one side is unbalanced, so both sides are computed under the unrestricted model (the restricted model is not defined for unbalanced layouts)".into(),
+            );
+        }
+        Some(Convention::Unrestricted)
+    } else {
+        convention
+    };
     let run = |side: &Side| {
         let c = convention.unwrap_or(side.layout.structure.convention);
         check_with_goal(&side.layout, c, &side.plan, &side.goal)

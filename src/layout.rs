@@ -12,11 +12,12 @@
 use std::path::Path;
 
 use crate::error::Error;
-use crate::spec::{self, ConventionSpec, KindSpec, Spec};
+use crate::spec::{self, ConventionSpec, KindSpec, Spec, SumsOfSquaresSpec};
 use crate::term::{Mask, Term, parse_term_label};
+pub use crate::unbalanced::removal::Removal;
 
-/// What emsplan says when asked about a layout with units removed.
-pub const UNBALANCED_NOT_YET: &str = "removing units from some cells only makes the layout unbalanced, and emsplan handles balanced layouts only so far (unbalanced layouts are planned); until then, compare balanced alternatives (fewer units at every level) or ask a statistician";
+/// Why an unbalanced layout is not checked under the restricted convention.
+pub const RESTRICTED_UNBALANCED: &str = "the restricted convention (mixed interaction effects summing to zero over the fixed levels) is defined for balanced layouts; with cells removed the sums run over unequal numbers of observations and the model is not defined the same way, so emsplan uses the unrestricted model for unbalanced layouts: set convention = \"unrestricted\" or leave the key out";
 
 /// At most this many factors: the model has up to 2^k - 1 terms.
 pub const MAX_FACTORS: usize = 12;
@@ -75,11 +76,37 @@ pub struct Levels {
     pub replicates: u64,
 }
 
+/// Which sums of squares the expected mean squares of an unbalanced layout are of. In a
+/// balanced layout every choice gives the same sums of squares.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Default, serde::Serialize)]
+pub enum SumsOfSquares {
+    /// Sequential (type I): each term adjusted for the terms fitted before it.
+    #[default]
+    #[serde(rename = "sequential")]
+    Sequential,
+    /// Type III: each term adjusted for every other term (sum-to-zero coding).
+    #[serde(rename = "type3")]
+    Type3,
+}
+
+impl SumsOfSquares {
+    pub fn name(self) -> &'static str {
+        match self {
+            SumsOfSquares::Sequential => "sequential",
+            SumsOfSquares::Type3 => "type3",
+        }
+    }
+}
+
 #[derive(Debug, Clone)]
 pub struct Layout {
     pub name: String,
     pub structure: Structure,
     pub levels: Levels,
+    /// Cells missing from the full layout; empty for a balanced layout.
+    pub removed: Vec<Removal>,
+    /// The sums of squares of an unbalanced layout (no effect on a balanced one).
+    pub sums_of_squares: SumsOfSquares,
 }
 
 impl Structure {
@@ -183,11 +210,32 @@ impl Layout {
             name,
             structure,
             levels,
+            removed: Vec::new(),
+            sums_of_squares: SumsOfSquares::default(),
         })
     }
 
+    /// The same layout with these removals (replacing any it had), validated: indices in
+    /// range, each removal removing something, no fixed level left empty, within the
+    /// unbalanced engine's size. Errors carry the line of the removal at fault.
+    pub fn with_removals(mut self, removed: Vec<Removal>) -> Result<Self, (Option<usize>, String)> {
+        self.removed = removed;
+        crate::unbalanced::removal::validate(&self)?;
+        Ok(self)
+    }
+
+    /// Whether every cell holds the same number of observations (nothing removed).
+    pub fn is_balanced(&self) -> bool {
+        self.removed.is_empty()
+    }
+
+    /// Observations in the layout, after any removals.
     pub fn observations(&self) -> u64 {
-        self.levels.observations()
+        if self.is_balanced() {
+            self.levels.observations()
+        } else {
+            crate::unbalanced::removal::cell_counts(self).iter().sum()
+        }
     }
 
     /// Reads, parses and validates a layout file.
@@ -206,9 +254,6 @@ impl Layout {
                 "missing [layout] table: add one with at least `replicates = N`",
             )
         })?;
-        if let Some(r) = &layout_spec.remove {
-            return Err(Error::invalid(at(r.span()), UNBALANCED_NOT_YET.to_string()));
-        }
         if spec.factor.is_empty() {
             return Err(Error::invalid(
                 None,
@@ -368,11 +413,43 @@ impl Layout {
                 .map(|(f, _)| spec::line_of(text, f.get_ref().name.span().start));
             return Err(Error::invalid(line, m));
         }
-        Ok(Layout {
+        let mut removed = Vec::new();
+        for r in &layout_spec.remove {
+            let entries: Vec<(String, i64, Option<usize>)> = r
+                .get_ref()
+                .iter()
+                .map(|(k, v)| (k.clone(), *v.get_ref(), at(v.span())))
+                .collect();
+            let line = at(r.span());
+            removed.push(
+                Removal::parse(&structure, &levels, &entries, line)
+                    .map_err(|(l, m)| Error::invalid(l, m))?,
+            );
+        }
+        if !removed.is_empty()
+            && let Some(c) = &layout_spec.convention
+            && *c.get_ref() == ConventionSpec::Restricted
+        {
+            return Err(Error::invalid(at(c.span()), RESTRICTED_UNBALANCED));
+        }
+        if !removed.is_empty() && layout_spec.convention.is_none() {
+            // The unrestricted model is the only one defined for unbalanced layouts.
+            structure.convention = Convention::Unrestricted;
+        }
+        let sums_of_squares = match layout_spec.sums_of_squares.as_ref().map(|x| *x.get_ref()) {
+            None | Some(SumsOfSquaresSpec::Sequential) => SumsOfSquares::Sequential,
+            Some(SumsOfSquaresSpec::Type3) => SumsOfSquares::Type3,
+        };
+        let layout = Layout {
             name,
             structure,
             levels,
-        })
+            removed: Vec::new(),
+            sums_of_squares,
+        };
+        layout
+            .with_removals(removed)
+            .map_err(|(l, m)| Error::invalid(l, m))
     }
 }
 

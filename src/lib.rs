@@ -23,4 +23,5 @@ pub mod search;
 pub mod simulate;
 pub mod spec;
 pub mod term;
+pub mod unbalanced;
 pub mod variant;

@@ -121,15 +121,22 @@ impl Change {
         match *self {
             Change::Levels { factor, to } => levels.per_factor[factor] = to,
             Change::Replicates { to } => levels.replicates = to,
+            // Removals count units within nests, so a new nesting would move them.
+            Change::Within { .. } if !layout.is_balanced() => return None,
             Change::Within { factor, within } => return set_within(layout, factor, within).ok(),
             Change::Omit { live } => structure.omitted.push(live),
         }
-        Layout::new(layout.name.clone(), structure, levels).ok()
+        let mut changed = Layout::new(layout.name.clone(), structure, levels).ok()?;
+        changed.sums_of_squares = layout.sums_of_squares;
+        changed.with_removals(layout.removed.clone()).ok()
     }
 }
 
 /// The test of the term with live set `live`, or `None` when the layout has no such term.
 pub fn outcome(layout: &Layout, plan: &PlanningValues, live: Mask) -> Option<Outcome> {
+    if !layout.is_balanced() {
+        return crate::unbalanced::outcome(layout, plan, live);
+    }
     let model = Model::new(&layout.structure);
     let t = model.terms.iter().position(|u| u.live == live)?;
     let ems = model.ems(&layout.levels).ok()?;

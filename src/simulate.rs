@@ -967,7 +967,7 @@ pub fn simulate(
                         .iter()
                         .map(|&(v, w)| DenominatorPart {
                             term: labels[v].clone(),
-                            coefficient: w,
+                            coefficient: crate::check::Coefficient::Exact(w),
                         })
                         .collect(),
                     planned_df: planned.and_then(|p| p.denominator_df),

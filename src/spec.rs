@@ -32,9 +32,20 @@ pub struct LayoutSpec {
     pub convention: Option<Spanned<ConventionSpec>>,
     #[serde(default)]
     pub omit: Vec<Spanned<String>>,
-    /// Units or observations missing from the balanced layout (refused until unbalanced
-    /// layouts are supported, with a message that says so).
-    pub remove: Option<Spanned<toml::Value>>,
+    /// Cells missing from the full layout: each table names factors (and `replicate`) by
+    /// 1-based level index within their nests; unnamed factors range over every level.
+    #[serde(default)]
+    pub remove: Vec<Spanned<BTreeMap<String, Spanned<i64>>>>,
+    /// Which sums of squares the expected mean squares of an unbalanced layout are of.
+    pub sums_of_squares: Option<Spanned<SumsOfSquaresSpec>>,
+}
+
+#[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]
+pub enum SumsOfSquaresSpec {
+    #[serde(rename = "sequential")]
+    Sequential,
+    #[serde(rename = "type3")]
+    Type3,
 }
 
 #[derive(Debug, Clone, Copy, Deserialize, PartialEq, Eq)]

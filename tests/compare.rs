@@ -176,7 +176,10 @@ fn bad_changes_are_clear_errors() {
             "finite number of zero or more",
         ),
         (&["--drop", "shelf"], "\"shelf\" is not a factor"),
-        (&["--remove", "light=2,chamber=3"], "unbalanced"),
+        (
+            &["--remove", "light=4,chamber=3"],
+            "beyond the 3 levels of light",
+        ),
         (&[], "needs something to compare with"),
     ];
     for (extra, phrase) in cases {
@@ -196,23 +199,46 @@ fn bad_changes_are_clear_errors() {
     }
 }
 
-/// A layout file that lists removed units is refused with the same plain message.
+/// A layout file that lists removed units is checked by the unbalanced engine, under the
+/// unrestricted model only: a file that asks for the restricted convention is refused at
+/// the line of its `convention`.
 #[test]
-fn removed_units_in_a_file_need_unbalanced_support() {
+fn removed_units_in_a_file_are_checked_unrestricted() {
     let dir = std::env::temp_dir().join(format!("emsplan-compare-{}", std::process::id()));
     std::fs::create_dir_all(&dir).unwrap();
     let path = dir.join("lost-chamber.toml");
-    let text = std::fs::read_to_string(problem("growth-chambers.toml"))
+    let original = std::fs::read_to_string(problem("growth-chambers.toml")).unwrap();
+    let line = original
+        .lines()
+        .position(|l| l.starts_with("convention"))
         .unwrap()
-        .replace(
-            "convention = \"restricted\"",
-            "convention = \"restricted\"\n[[layout.remove]]\nlight = 2\nchamber = 3",
-        );
+        + 1;
+    let text = original.replace(
+        "convention = \"restricted\"",
+        "convention = \"restricted\"\n[[layout.remove]]\nlight = 2\nchamber = 3",
+    );
     std::fs::write(&path, text).unwrap();
     let (code, _, err) = run(&["check", path.to_str().unwrap()]);
     assert_eq!(code, 1);
-    assert!(err.contains("unbalanced"), "{err}");
-    assert!(err.contains(" line "), "{err}");
+    assert!(err.contains("restricted convention"), "{err}");
+    assert!(err.contains(&format!(" line {line}: ")), "{err}");
+    let text = original.replace(
+        "convention = \"restricted\"",
+        "convention = \"unrestricted\"\n[[layout.remove]]\nlight = 2\nchamber = 3",
+    );
+    std::fs::write(&path, text).unwrap();
+    let (code, out, err) = run(&["check", path.to_str().unwrap(), "--format", "json"]);
+    assert_eq!(code, 0, "{err}");
+    let v: Value = serde_json::from_str(&out).unwrap();
+    // 3 lights x 3 chambers x 4 cultivars x 3 pots, less the 12 pots of one chamber.
+    assert_eq!(v["observations"], 96);
+    assert_eq!(v["unbalanced"]["removed_observations"], 12);
+    // light over chamber(light) on Σ b_i - a = 8 - 3 = 5 df.
+    assert_eq!(
+        v["terms"][0]["test"]["denominator"][0]["term"],
+        "chamber(light)"
+    );
+    assert_eq!(v["terms"][0]["test"]["denominator_df"], 5.0);
 }
 
 /// Repairs for a must-test term below its power target: each listed change really

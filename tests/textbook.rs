@@ -30,12 +30,7 @@ fn ems(report: &CheckReport, term: &str) -> BTreeMap<String, f64> {
         .unwrap_or_else(|| panic!("no term {term}"));
     t.ems
         .iter()
-        .map(|c| {
-            (
-                c.component.clone(),
-                *c.coefficient.numer() as f64 / *c.coefficient.denom() as f64,
-            )
-        })
+        .map(|c| (c.component.clone(), c.coefficient.value()))
         .collect()
 }
 
@@ -53,12 +48,7 @@ fn test_of(report: &CheckReport, term: &str) -> (Verdict, BTreeMap<String, f64>,
         test.verdict,
         test.denominator
             .iter()
-            .map(|d| {
-                (
-                    d.term.clone(),
-                    *d.coefficient.numer() as f64 / *d.coefficient.denom() as f64,
-                )
-            })
+            .map(|d| (d.term.clone(), d.coefficient.value()))
             .collect(),
         test.denominator_df,
     )
@@ -367,7 +357,11 @@ population = 10
         .iter()
         .find(|c| c.component == "mowing x meadow")
         .unwrap();
-    assert_eq!((*c.coefficient.numer(), *c.coefficient.denom()), (9, 5));
+    let exact = c
+        .coefficient
+        .exact()
+        .expect("balanced coefficients are exact");
+    assert_eq!((*exact.numer(), *exact.denom()), (9, 5));
 }
 
 /// Two random factors from finite populations (Cornfield and Tukey 1956): E(MS_A) =

@@ -45,12 +45,12 @@ fn over(row: &AnovaRow) -> String {
         Some(t) => match t.verdict {
             Verdict::Exact => t.denominator[0].term.clone(),
             Verdict::Synthetic => {
-                let parts: Vec<(String, crate::ems::Rational)> = t
+                let parts: Vec<(String, crate::check::Coefficient)> = t
                     .denominator
                     .iter()
                     .map(|d| (d.term.clone(), d.coefficient))
                     .collect();
-                crate::errorterm::denominator_text(&parts)
+                crate::check::denominator_words(&parts)
             }
             Verdict::Untestable => "none (untestable)".into(),
             Verdict::NotEstimable => "none (0 df)".into(),

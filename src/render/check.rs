@@ -3,8 +3,9 @@
 use serde::Serialize;
 
 use super::{Format, csv_table, json, markdown_table, num, text_table};
+use crate::check::denominator_words;
 use crate::check::{CheckReport, TermReport, TestReport};
-use crate::errorterm::{Verdict, denominator_text, weight_text};
+use crate::errorterm::Verdict;
 use crate::layout::Kind;
 
 /// E(MS) in the trade's notation: `σ² + 6σ²(bench) + 24κ²(light)`.
@@ -12,10 +13,10 @@ pub fn ems_text(term: &TermReport) -> String {
     term.ems
         .iter()
         .map(|c| {
-            if c.coefficient == crate::ems::Rational::from_integer(1) {
+            if c.coefficient.is_one() {
                 c.symbol.clone()
             } else {
-                format!("{}{}", weight_text(&c.coefficient), c.symbol)
+                format!("{}{}", c.coefficient.text(), c.symbol)
             }
         })
         .collect::<Vec<_>>()
@@ -27,12 +28,12 @@ pub fn tested_over(test: &TestReport) -> String {
     match test.verdict {
         Verdict::Exact => test.denominator[0].term.clone(),
         Verdict::Synthetic => {
-            let parts: Vec<(String, crate::ems::Rational)> = test
+            let parts: Vec<(String, crate::check::Coefficient)> = test
                 .denominator
                 .iter()
                 .map(|d| (d.term.clone(), d.coefficient))
                 .collect();
-            denominator_text(&parts)
+            denominator_words(&parts)
         }
         Verdict::Untestable | Verdict::NotEstimable => "none".into(),
     }
@@ -175,6 +176,30 @@ fn planning_text(report: &CheckReport, bullet: &str) -> String {
     out
 }
 
+/// What an unbalanced layout adds: what was removed, which sums of squares, the notes.
+fn unbalanced_text(report: &CheckReport, bullet: &str) -> String {
+    let Some(u) = &report.unbalanced else {
+        return String::new();
+    };
+    let what = match u.sums_of_squares {
+        crate::layout::SumsOfSquares::Sequential => format!(
+            "sequential sums of squares, fitted in the order {}",
+            u.fit_order.join(", ")
+        ),
+        crate::layout::SumsOfSquares::Type3 => "type III sums of squares".to_string(),
+    };
+    let mut out = format!(
+        "\nUnbalanced: {} of the full layout's {} observations removed ({}); {what}.\n",
+        u.removed_observations,
+        u.full_observations,
+        u.removals.join("; ")
+    );
+    for n in &u.notes {
+        out.push_str(&format!("{bullet}{n}\n"));
+    }
+    out
+}
+
 pub fn render(report: &CheckReport, format: Format) -> String {
     match format {
         Format::Json => json(report),
@@ -187,6 +212,7 @@ pub fn render(report: &CheckReport, format: Format) -> String {
                 report.observations
             );
             out.push_str(&markdown_table(header(report), rows(report)));
+            out.push_str(&unbalanced_text(report, "- "));
             out.push_str(&planning_text(report, "- "));
             if !report.findings.is_empty() {
                 out.push_str("\n### What needs attention\n\n");
@@ -204,6 +230,7 @@ pub fn render(report: &CheckReport, format: Format) -> String {
                 report.observations
             );
             out.push_str(&text_table(header(report), rows(report)));
+            out.push_str(&unbalanced_text(report, "  note: "));
             out.push_str(&planning_text(report, "  note: "));
             if report.findings.is_empty() {
                 out.push_str("\nEvery term with df has an exact F test.\n");

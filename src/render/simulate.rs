@@ -2,7 +2,8 @@
 
 use super::check::CAUTION;
 use super::{Format, csv_table, json, markdown_table, text_table};
-use crate::errorterm::{Verdict, denominator_text};
+use crate::check::denominator_words;
+use crate::errorterm::Verdict;
 use crate::render::analyze::sig;
 use crate::simulate::{DataSet, Rate, SimulateReport, SimulatedTerm, SimulatedTest};
 
@@ -27,7 +28,7 @@ fn opt(x: Option<f64>) -> String {
 fn over(t: &SimulatedTest) -> String {
     match t.verdict {
         Verdict::Exact => t.denominator[0].term.clone(),
-        Verdict::Synthetic => denominator_text(
+        Verdict::Synthetic => denominator_words(
             &t.denominator
                 .iter()
                 .map(|d| (d.term.clone(), d.coefficient))
