@@ -347,6 +347,12 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 return Err(Error::Usage("--top must be at least 1".into()));
             }
             let p = Problem::from_file(&problem, alpha, power)?;
+            if !p.base.is_balanced() {
+                return Err(Error::Usage(format!(
+                    "{}: the design search plans balanced layouts; remove the [[layout.remove]] tables to search, then check the chosen layout with its losses",
+                    problem.display()
+                )));
+            }
             let search = Search::new(p).map_err(|e| e.in_file(&problem))?;
             let space = search.space();
             eprintln!(
@@ -429,6 +435,12 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             if crate::spec::read(&layout)?.0.search.is_some() {
                 use crate::search::{Options, Problem, Search};
                 let p = Problem::from_file(&layout, planning.alpha, planning.power)?;
+                if !p.base.is_balanced() {
+                    return Err(Error::Usage(format!(
+                        "{}: the design search plans balanced layouts; remove the [[layout.remove]] tables to search",
+                        layout.display()
+                    )));
+                }
                 let search = Search::new(p).map_err(|e| e.in_file(&layout))?;
                 let found = search
                     .run(&Options::default(), &crate::search::Quiet)

@@ -12,9 +12,7 @@ fn problems() -> Vec<PathBuf> {
         .filter(|p| p.extension().is_some_and(|x| x == "toml"))
         // The report handles balanced layouts; one with cells removed is refused (see
         // tests/unbalanced_cli.rs).
-        .filter(|p| {
-            emsplan::layout::Layout::from_file(p).is_ok_and(|(l, _, _)| l.is_balanced())
-        })
+        .filter(|p| emsplan::layout::Layout::from_file(p).is_ok_and(|(l, _, _)| l.is_balanced()))
         .collect();
     v.sort();
     assert!(!v.is_empty());
