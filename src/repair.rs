@@ -229,10 +229,12 @@ pub fn repairs(layout: &Layout, plan: &PlanningValues, goal: &Goal, live: Mask) 
     {
         for &(c, _) in &ems.rows[t] {
             let u = model.terms[c];
-            if c != t && !u.is_residual() && u.live.count_ones() >= 2 {
-                if let Some(rep) = judge(Change::Omit { live: u.live }) {
-                    found.push(rep);
-                }
+            if c != t
+                && !u.is_residual()
+                && u.live.count_ones() >= 2
+                && let Some(rep) = judge(Change::Omit { live: u.live })
+            {
+                found.push(rep);
             }
         }
     }

@@ -194,7 +194,7 @@ pub fn parse_term_label(structure: &Structure, text: &str) -> Result<Term, Strin
 
 fn parse_factor_set(structure: &Structure, part: &str, whole: &str) -> Result<Mask, String> {
     let mut mask = 0;
-    let normalised = part.replace('×', " x ").replace(',', " x ");
+    let normalised = part.replace(['×', ','], " x ");
     for name in normalised.split(" x ").map(str::trim) {
         if name.is_empty() {
             return Err(format!(

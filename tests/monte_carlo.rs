@@ -303,7 +303,7 @@ fn mean_squares(layout: &Layout, model: &Model, at: &[Vec<usize>], y: &[f64]) ->
             let mut ss = 0.0;
             for sub in 0..(1u32 << live.len()) {
                 let s_mask: Mask = bits(sub, live.len()).iter().map(|&k| 1 << live[k]).sum();
-                let sign = if (live.len() - sub.count_ones() as usize) % 2 == 0 {
+                let sign = if (live.len() - sub.count_ones() as usize).is_multiple_of(2) {
                     1.0
                 } else {
                     -1.0
@@ -376,15 +376,15 @@ fn simulate(sim: &Simulator, seed: u64) -> Vec<Finding> {
         let ms = mean_squares(layout, model, &at, &y);
         for t in 0..terms {
             ms_moments[t].push(ms[t]);
-            if let Some(test) = &tests[t] {
-                if test.verdict.is_testable() {
-                    let d: f64 = test
-                        .denominator
-                        .iter()
-                        .map(|&(v, w)| ms[v] * (*w.numer() as f64 / *w.denom() as f64))
-                        .sum();
-                    den_moments[t].push(d);
-                }
+            if let Some(test) = &tests[t]
+                && test.verdict.is_testable()
+            {
+                let d: f64 = test
+                    .denominator
+                    .iter()
+                    .map(|&(v, w)| ms[v] * (*w.numer() as f64 / *w.denom() as f64))
+                    .sum();
+                den_moments[t].push(d);
             }
         }
     }

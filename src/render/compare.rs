@@ -49,7 +49,7 @@ fn status(s: Status) -> &'static str {
 fn rows(c: &Comparison) -> Vec<Vec<String>> {
     c.terms
         .iter()
-        .filter(|t| !(t.label == "residual"))
+        .filter(|t| t.label != "residual")
         .map(|t| {
             let [bo, bd, bp] = side(&t.base);
             let [oo, od, op] = side(&t.other);

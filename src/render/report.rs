@@ -44,18 +44,18 @@ pub fn html(r: &Report) -> String {
         esc(&r.title),
         esc(&r.title)
     );
-    let _ = write!(
+    let _ = writeln!(
         h,
-        "<p class=\"caution\"><strong>Caution.</strong> {}</p>\n",
+        "<p class=\"caution\"><strong>Caution.</strong> {}</p>",
         esc(CAUTION)
     );
     h.push_str("<h2>The layout</h2>\n");
     for line in &r.description {
         let _ = writeln!(h, "<p>{}</p>", esc(line));
     }
-    let _ = write!(
+    let _ = writeln!(
         h,
-        "<figure>{}<figcaption>Figure 1. The factors and how they are nested: an arrow points from a factor to each factor nested within it; factors joined by no arrow are crossed.</figcaption></figure>\n",
+        "<figure>{}<figcaption>Figure 1. The factors and how they are nested: an arrow points from a factor to each factor nested within it; factors joined by no arrow are crossed.</figcaption></figure>",
         r.diagram
     );
     h.push_str("<table>\n<tr><th>factor</th><th>kind</th><th>levels</th><th>nested in</th><th>population</th></tr>\n");
