@@ -404,6 +404,19 @@ pub(crate) fn planning_notes(model: &Model, plan: &PlanningValues) -> Vec<String
     notes
 }
 
+/// Why a term has no error term although every component is carried somewhere.
+pub const NO_COMBINATION: &str =
+    "no combination of the other mean squares has the expected value it needs";
+
+/// Why a term is tested by a quasi-F ratio, with the caution that goes with it (shared
+/// by the balanced and the unbalanced check).
+pub fn synthetic_reason(parts: &[(String, Coefficient)]) -> String {
+    format!(
+        "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946) under the planning values; with few denominator df its real level and power can be far from the nominal ones, so confirm them with `emsplan simulate`",
+        denominator_words(parts)
+    )
+}
+
 /// `σ²`, `σ²(bench)` or `κ²(light)`: the component in the trade's notation.
 pub fn symbol(model: &Model, c: usize) -> String {
     let t = model.terms[c];
@@ -437,17 +450,11 @@ fn explain(layout: &Layout, a: &Analysis, t: usize, e: &ErrorTerm) -> Option<Str
                 .iter()
                 .map(|&(v, w)| (label(v), Coefficient::Exact(w)))
                 .collect();
-            Some(format!(
-                "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946) under the planning values; with few denominator df its real level and power can be far from the nominal ones, so confirm them with `emsplan simulate`",
-                denominator_words(&parts)
-            ))
+            Some(synthetic_reason(&parts))
         }
         Verdict::Untestable => {
             if e.isolated.is_empty() {
-                return Some(
-                    "no combination of the other mean squares has the expected value it needs"
-                        .into(),
-                );
+                return Some(NO_COMBINATION.into());
             }
             let parts: Vec<String> = e
                 .isolated

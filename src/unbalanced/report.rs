@@ -4,8 +4,8 @@
 use serde::Serialize;
 
 use crate::check::{
-    CheckReport, Coefficient, Component, DenominatorPart, RepairReport, TermReport, TestReport,
-    denominator_words, finding, planning_notes, repair_report, shortfall, symbol,
+    CheckReport, Coefficient, Component, DenominatorPart, NO_COMBINATION, RepairReport, TermReport,
+    TestReport, finding, planning_notes, repair_report, shortfall, symbol, synthetic_reason,
 };
 use crate::errorterm::Verdict;
 use crate::goal::Goal;
@@ -108,17 +108,11 @@ fn explain(a: &Analysis, layout: &Layout, t: usize) -> Option<String> {
                 .iter()
                 .map(|&(v, w)| (label(v), Coefficient::Approximate(w)))
                 .collect();
-            Some(format!(
-                "no single mean square has the expected value it needs, so it is tested by a quasi-F ratio over {}; its denominator df come from Satterthwaite's approximation (1946) under the planning values",
-                denominator_words(&parts)
-            ))
+            Some(synthetic_reason(&parts))
         }
         Verdict::Untestable => {
             if e.isolated.is_empty() {
-                return Some(
-                    "no combination of the other mean squares has the expected value it needs"
-                        .into(),
-                );
+                return Some(NO_COMBINATION.into());
             }
             let parts: Vec<String> = e
                 .isolated
