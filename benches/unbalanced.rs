@@ -1,7 +1,7 @@
 //! Speed of the unbalanced engine: synthesis of the expected mean squares for a layout of
 //! 2,000 observations (less a few removed) and 12 terms, 1,000 non-empty cells.
 //!
-//! `cargo bench --bench unbalanced`. Target: the sequential synthesis under a second.
+//! `cargo bench --bench unbalanced`. Target: either synthesis under a second.
 
 use std::hint::black_box;
 

@@ -36,6 +36,7 @@ use nalgebra::DMatrix;
 
 use crate::layout::{Kind, SumsOfSquares};
 
+use super::blocked;
 use super::design::Design;
 
 /// Relative size below which a residual direction counts as inside the span already:
@@ -286,10 +287,10 @@ fn pivoted_cholesky(mut a: DMatrix<f64>, floor: f64) -> (Vec<usize>, DMatrix<f64
 /// x L^{-T} for a lower triangular L: the columns of x made orthonormal when L L' = x'x.
 fn right_solve_transpose(x: &DMatrix<f64>, l: &DMatrix<f64>) -> DMatrix<f64> {
     // Solve L Y = X' for Y = L^{-1} X', then return Y'.
-    let xt = x.transpose();
-    let y = l
-        .solve_lower_triangular(&xt)
-        .unwrap_or_else(|| DMatrix::zeros(l.nrows(), x.nrows()));
+    let mut y = x.transpose();
+    if !blocked::solve_lower(l.as_view(), y.as_view_mut()) {
+        return DMatrix::zeros(x.nrows(), l.nrows());
+    }
     y.transpose()
 }
 
@@ -316,8 +317,8 @@ fn extend(basis: &[&DMatrix<f64>], mut x: DMatrix<f64>) -> DMatrix<f64> {
     let mut q = right_solve_transpose(&chosen, &l);
     residualise(basis, &mut q);
     let gram = q.transpose() * &q;
-    match gram.clone().cholesky() {
-        Some(c) => right_solve_transpose(&q, &c.l()),
+    match blocked::cholesky(gram.clone()) {
+        Some(c) => right_solve_transpose(&q, &c),
         None => {
             let (_, l2) = pivoted_cholesky(gram, 0.0);
             if l2.nrows() == rank {
@@ -382,13 +383,13 @@ fn type3_blocks(
         None => x,
         Some(u) => u.transpose() * &x,
     };
-    let Some(chol) = (&r_coords * r_coords.transpose()).cholesky() else {
+    let Some(c) = blocked::cholesky(&r_coords * r_coords.transpose()) else {
         return out;
     };
-    let c = chol.l();
-    let w = c
-        .solve_lower_triangular(&r_coords)
-        .unwrap_or_else(|| DMatrix::zeros(r_coords.nrows(), r_coords.ncols()));
+    let mut w = r_coords;
+    if !blocked::solve_lower(c.as_view(), w.as_view_mut()) {
+        return out;
+    }
     let ct = c.transpose();
     for &t in order {
         if matches!(sequential[t], Block::Rest) {
@@ -408,10 +409,10 @@ fn type3_blocks(
             continue;
         }
         let vectors = DMatrix::from_fn(count, keep.len(), |i, j| eig.eigenvectors[(i, keep[j])]);
-        let ws = &wt * vectors;
-        let z = ct
-            .solve_upper_triangular(&ws)
-            .unwrap_or_else(|| DMatrix::zeros(ws.nrows(), ws.ncols()));
+        let mut z = &wt * vectors;
+        if !blocked::solve_upper(ct.as_view(), z.as_view_mut()) {
+            continue;
+        }
         let v = match &u {
             None => z,
             Some(u) => u * z,

@@ -17,6 +17,7 @@
 //! fixed order, `Fit::new(&design, kind)` fits the layout once, and
 //! `Fit::sums_of_squares(&design, &y)` gives every term's sum of squares for a response.
 
+mod blocked;
 pub mod denominator;
 pub mod design;
 pub mod fit;
