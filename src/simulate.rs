@@ -1245,7 +1245,10 @@ pub fn simulate(
                 .iter()
                 .map(|e| {
                     e.as_ref().map(|e| {
-                        let parts = e.denominator.iter().map(|&(v, w)| (v, Coefficient::Exact(w)));
+                        let parts = e
+                            .denominator
+                            .iter()
+                            .map(|&(v, w)| (v, Coefficient::Exact(w)));
                         (e.verdict, parts.collect())
                     })
                 })
@@ -1253,8 +1256,14 @@ pub fn simulate(
         ),
         Some(kept) => {
             let u = &kept.analysis;
-            let mut plans =
-                unbalanced::denominator::plan_tests(&u.design.model, &u.ems, df, &u.tests, plan, layout);
+            let mut plans = unbalanced::denominator::plan_tests(
+                &u.design.model,
+                &u.ems,
+                df,
+                &u.tests,
+                plan,
+                layout,
+            );
             averaged = plans.iter().map(|p| p.and_then(|p| p.power)).collect();
             for test in &sim.tests {
                 let t = test.term;
@@ -1389,7 +1398,9 @@ pub fn simulate(
         ));
     }
     if let Some(kept) = &sim.kept {
-        notes.extend(unbalanced_notes(&sim, kept, &labels, &plans, &averaged, layout));
+        notes.extend(unbalanced_notes(
+            &sim, kept, &labels, &plans, &averaged, layout,
+        ));
     }
 
     let (data, data_set) = match &request.data {

@@ -271,7 +271,8 @@ b = 1.5
     let n = runs as f64;
     let (layout, plan) = load_text(&text("sequential"));
     let r = run(&layout, &plan, 5, runs);
-    let binomial = |rate: f64, p: f64| (rate - p).abs() <= TOLERANCE_SE * (p * (1.0 - p) / n).sqrt();
+    let binomial =
+        |rate: f64, p: f64| (rate - p).abs() <= TOLERANCE_SE * (p * (1.0 - p) / n).sqrt();
     let a = term(&r, "a").test.as_ref().unwrap();
     let null = a.null.unwrap();
     assert!(binomial(null.rate, want), "{null:?} vs {want}");
@@ -285,11 +286,19 @@ b = 1.5
     );
     for label in ["b", "a x b"] {
         let x = term(&r, label).test.as_ref().unwrap();
-        assert!(binomial(x.null.unwrap().rate, 0.05), "{label}: {:?}", x.null);
+        assert!(
+            binomial(x.null.unwrap().rate, 0.05),
+            "{label}: {:?}",
+            x.null
+        );
     }
     for t in &r.terms {
         if let (Some(m), Some(se)) = (t.mean_ms, t.mean_ms_se) {
-            assert!((m - t.expected_ms).abs() <= TOLERANCE_SE * se, "{}", t.label);
+            assert!(
+                (m - t.expected_ms).abs() <= TOLERANCE_SE * se,
+                "{}",
+                t.label
+            );
         }
     }
 
@@ -362,11 +371,7 @@ fn data_set_is_the_full_one_less_the_removed_observations() {
     for (i, (a, b)) in kept.iter().zip(&expected).enumerate() {
         assert_eq!(&a, b, "row {}", i + 2);
     }
-    assert!(
-        !kept
-            .iter()
-            .any(|r| r[0] == "light2" && r[1] == "chamber3")
-    );
+    assert!(!kept.iter().any(|r| r[0] == "light2" && r[1] == "chamber3"));
     let pot = kept
         .iter()
         .filter(|r| r[..3] == ["light1", "chamber1", "cultivar2"])
@@ -400,12 +405,20 @@ fn written_mean_squares_are_the_files() {
         ])
         .output()
         .unwrap();
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     let report: Value = serde_json::from_slice(&out.stdout).unwrap();
     let (header, rows) = read_csv(&path);
     assert_eq!(header, ["temperature", "tank", "response"]);
     assert_eq!(rows.len(), 30);
-    assert!(!rows.iter().any(|r| r[0] == "temperature2" && r[1] == "tank3"));
+    assert!(
+        !rows
+            .iter()
+            .any(|r| r[0] == "temperature2" && r[1] == "tank3")
+    );
     let mut by_tank: BTreeMap<(String, String), Vec<f64>> = BTreeMap::new();
     for r in &rows {
         by_tank
@@ -435,7 +448,10 @@ fn written_mean_squares_are_the_files() {
         .sum();
     let want = [ss_temperature / 1.0, ss_tank / 3.0, ss_residual / 25.0];
     let written = report["data"]["mean_squares"].as_array().unwrap();
-    let labels: Vec<&str> = written.iter().map(|m| m["term"].as_str().unwrap()).collect();
+    let labels: Vec<&str> = written
+        .iter()
+        .map(|m| m["term"].as_str().unwrap())
+        .collect();
     assert_eq!(labels, ["temperature", "tank(temperature)", "residual"]);
     for (m, w) in written.iter().zip(want) {
         let got = m["ms"].as_f64().unwrap();
@@ -491,7 +507,9 @@ fn binary_runs_on_the_shipped_unbalanced_problems() {
                 assert_eq!(v["unbalanced"]["sums_of_squares"], "sequential");
             }
         }
-        let args = ["simulate", file, "--runs", "300", "--seed", "4", "--format", "json"];
+        let args = [
+            "simulate", file, "--runs", "300", "--seed", "4", "--format", "json",
+        ];
         let one = emsplan(&args, "1");
         assert_eq!(one.stdout, emsplan(&args, "2").stdout, "{file}");
     }
