@@ -171,7 +171,8 @@ struct Kept {
     /// term (residual last): μ'Aμ for the simulated pattern.
     fixed_ss: Vec<f64>,
     /// Of each planned test: the sum of squares of its term for μ less the term's own
-    /// effects, what its null data sets still carry of the other fixed terms.
+    /// effects (if it has any), what its null data sets still carry of the other fixed
+    /// terms.
     null_fixed_ss: Vec<f64>,
 }
 
@@ -1479,13 +1480,7 @@ fn unbalanced_notes(
     layout: &Layout,
 ) -> Vec<String> {
     let mut notes = vec![
-        format!(
-            "unbalanced layout: each data set is drawn over the full layout and the removed observations are dropped; {} sums of squares; expected mean squares are Hartley's (1967) synthesis coefficients times the priors, plus the fixed effects' part computed exactly for the simulated effect pattern (μ'Aμ / df)",
-            match layout.sums_of_squares {
-                SumsOfSquares::Sequential => "sequential (type I)",
-                SumsOfSquares::Type3 => "type III",
-            }
-        ),
+        "unbalanced layout: each data set is drawn over the full layout and the removed observations are dropped; expected mean squares are Hartley's (1967) synthesis coefficients times the priors, plus the fixed effects' part computed exactly for the simulated effect pattern (μ'Aμ / df)".to_string(),
         "in an unbalanced layout mean squares are not scaled chi-squares in general, so F and quasi-F ratios, Satterthwaite df and the analytic power (of random terms too) are approximations; the simulated rates show how close they are here".to_string(),
     ];
     let mut differs = Vec::new();
@@ -1507,10 +1502,10 @@ fn unbalanced_notes(
         ));
     }
     for (test, &ss) in sim.tests.iter().zip(&kept.null_fixed_ss) {
-        if !matches!(test.own, Own::Fixed(_)) {
+        let t = test.term;
+        if sim.analysis.model.kinds[t] != Kind::Fixed {
             continue;
         }
-        let t = test.term;
         let df2 = plans[t].and_then(|p| p.denominator_df);
         let Some(rate) = sim.pattern_power(test, df2, ss) else {
             continue;
