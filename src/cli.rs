@@ -328,7 +328,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 power: None,
             };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
-            balanced_only(&layout, &layout_path, "analyze")?;
+            
             let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
             Ok(render::analyze::render(&report, format))

@@ -182,7 +182,7 @@ fn nested_mixed_layout_against_statsmodels() {
         .iter()
         .find(|m| m.term == "light x cultivar")
         .unwrap();
-    assert_eq!((cells.rows.len(), cells.per_mean), (12, 9));
+    assert_eq!((cells.rows.len(), cells.per_mean), (12, Some(9)));
 }
 
 /// A two-stage nested random design with sample labels unique across batches.
