@@ -301,14 +301,20 @@ pub fn cell_counts(layout: &Layout) -> Vec<u64> {
     counts_after(layout, layout.removed.len())
 }
 
-/// Which replicates (0-based) are left in a cell.
-pub fn kept_replicates(layout: &Layout, cell: &[u64]) -> Vec<u64> {
-    (0..layout.levels.replicates)
-        .filter(|&k| {
-            !layout
-                .removed
-                .iter()
-                .any(|r| r.covers_cell(cell) && r.replicate.is_none_or(|x| x == k))
+/// Which replicates (0-based) are left in every full cell (in the order of
+/// `cell_counts`), after all removals.
+pub fn kept_replicates(layout: &Layout) -> Vec<Vec<u64>> {
+    let levels = &layout.levels;
+    let strides = strides(levels);
+    let mut gone: Vec<Option<Gone>> = vec![None; levels.cells() as usize];
+    for r in &layout.removed {
+        apply(&mut gone, r, levels, &strides);
+    }
+    gone.iter()
+        .map(|g| match g {
+            None => (0..levels.replicates).collect(),
+            Some(Gone::All) => Vec::new(),
+            Some(Gone::Some(v)) => (0..levels.replicates).filter(|k| !v.contains(k)).collect(),
         })
         .collect()
 }
