@@ -230,7 +230,7 @@ fn the_binary_analyses_the_shipped_unbalanced_data() {
         .unwrap();
     let text = String::from_utf8_lossy(&out.stdout);
     assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
-    assert!(text.contains("Unbalanced data: 95 of the layout's 108 observations"), "{text}");
+    assert!(text.contains("Unbalanced data: 94 of the layout's 108 observations"), "{text}");
     assert!(text.contains("(quasi)"), "synthetic tests: {text}");
 }
 
