@@ -429,7 +429,6 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             planning,
         } => {
             let side = load_side(&layout, &planning)?;
-            balanced_only(&side.layout, &layout, "report")?;
             let mut report =
                 crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
             if crate::spec::read(&layout)?.0.search.is_some() {
@@ -448,6 +447,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 report.sections.push(render::report::search_section(&found));
             }
             if let Some(runs) = runs {
+                balanced_only(&side.layout, &layout, "report --runs")?;
                 if runs == 0 || runs > crate::simulate::MAX_RUNS {
                     return Err(Error::Usage(format!(
                         "--runs {runs}: ask for between 1 and {} data sets",
