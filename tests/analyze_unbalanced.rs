@@ -19,33 +19,14 @@ use std::process::Command;
 
 use emsplan::analyze::{AnalyzeReport, analyze, read_data};
 use emsplan::errorterm::Verdict;
-use emsplan::layout::Layout;
 use serde_json::Value;
 
-fn root() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
+mod common;
+
+use common::{layout_from_file, layout_from_text, root, run};
 
 fn reference() -> Value {
-    let text = std::fs::read_to_string(root().join("tests/reference/unbalanced_reference.json"))
-        .expect("the reference file is committed");
-    serde_json::from_str(&text).expect("the reference is JSON")
-}
-
-fn layout_from_text(text: &str) -> Layout {
-    let spec = emsplan::spec::parse(text).expect("parses");
-    Layout::from_spec(&spec, text).expect("valid layout")
-}
-
-fn layout_from_file(rel: &str) -> Layout {
-    Layout::from_file(&root().join(rel))
-        .expect("the shipped layout loads")
-        .0
-}
-
-fn run(layout: &Layout, data: &str) -> AnalyzeReport {
-    let obs = read_data(&root().join(data), layout, None).expect("the fixture reads");
-    analyze(layout, &obs, 0.05).expect("analyze runs")
+    common::reference("unbalanced_reference.json")
 }
 
 fn close(a: f64, b: f64, rel: f64, what: &str) {
