@@ -327,7 +327,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 power: None,
             };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
-            balanced_only(&layout, &layout_path, "analyze")?;
+            
             let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
             Ok(render::analyze::render(&report, format))
@@ -428,7 +428,6 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             planning,
         } => {
             let side = load_side(&layout, &planning)?;
-            balanced_only(&side.layout, &layout, "report")?;
             let mut report =
                 crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
             if crate::spec::read(&layout)?.0.search.is_some() {
@@ -447,6 +446,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 report.sections.push(render::report::search_section(&found));
             }
             if let Some(runs) = runs {
+                balanced_only(&side.layout, &layout, "report --runs")?;
                 if runs == 0 || runs > crate::simulate::MAX_RUNS {
                     return Err(Error::Usage(format!(
                         "--runs {runs}: ask for between 1 and {} data sets",

@@ -224,10 +224,10 @@ impl Simulator {
             // Population index of each factor's level.
             let pop_at: Vec<usize> = (0..n).map(|j| chosen[j][at[j]]).collect();
             let mut value = 10.0;
-            for t in 0..self.model.terms.len() {
-                if let Some(e) = &self.fixed[t] {
+            for (fixed, random) in self.fixed.iter().zip(&effects) {
+                if let Some(e) = fixed {
                     value += e.values[e.offset(&at)];
-                } else if let Some(e) = &effects[t] {
+                } else if let Some(e) = random {
                     value += e.values[e.offset(&pop_at)];
                 }
             }

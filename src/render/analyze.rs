@@ -1,9 +1,9 @@
 //! Rendering of `analyze` results.
 
 use super::{Format, csv_table, json, markdown_table, text_table};
-use crate::analyze::{AnalyzeReport, AnovaRow, NEGATIVE_ADVICE};
+use crate::analyze::{AnalyzeReport, AnovaRow, MeansTable, NEGATIVE_ADVICE};
 use crate::errorterm::Verdict;
-use crate::layout::Kind;
+use crate::layout::{Kind, SumsOfSquares};
 
 /// The caution that goes with an analysis people will act on.
 pub const ANALYSIS_CAUTION: &str = "The tests take the layout's error terms as given: they are right only if the layout file describes how the experiment was really run (what was randomised to what, what is nested in what). Have a statistician review conclusions that carry real cost or risk.";
@@ -210,6 +210,9 @@ pub fn render(r: &AnalyzeReport, format: Format) -> String {
                 r.data,
                 r.convention.name()
             );
+            if let Some(t) = imbalance_text(r) {
+                out.push_str(&format!("{t}\n\n"));
+            }
             out.push_str(&markdown_table(&HEADER, rows(r)));
             out.push('\n');
             for e in explanations(r) {
@@ -224,13 +227,8 @@ pub fn render(r: &AnalyzeReport, format: Format) -> String {
                 sig(r.grand_mean)
             ));
             for m in &r.means {
-                out.push_str(&format!(
-                    "\n{} ({} observations per mean)\n\n",
-                    m.term, m.per_mean
-                ));
-                let mut header: Vec<&str> = m.factors.iter().map(String::as_str).collect();
-                header.push("mean");
-                out.push_str(&markdown_table(&header, mean_rows(m)));
+                out.push_str(&format!("\n{}\n\n", means_heading(m)));
+                out.push_str(&markdown_table(&means_header(m), mean_rows(m)));
             }
             if !r.notes.is_empty() {
                 out.push_str("\n### What needs attention\n\n");
@@ -250,6 +248,9 @@ pub fn render(r: &AnalyzeReport, format: Format) -> String {
                 r.observations,
                 r.convention.name()
             );
+            if let Some(t) = imbalance_text(r) {
+                out.push_str(&format!("{t}\n\n"));
+            }
             out.push_str(&text_table(&HEADER, rows(r)));
             out.push('\n');
             for e in explanations(r) {
@@ -264,13 +265,8 @@ pub fn render(r: &AnalyzeReport, format: Format) -> String {
             }
             out.push_str(&format!("\nGrand mean {}.\n", sig(r.grand_mean)));
             for m in &r.means {
-                out.push_str(&format!(
-                    "\nMeans of {} ({} observations per mean):\n\n",
-                    m.term, m.per_mean
-                ));
-                let mut header: Vec<&str> = m.factors.iter().map(String::as_str).collect();
-                header.push("mean");
-                out.push_str(&text_table(&header, mean_rows(m)));
+                out.push_str(&format!("\nMeans of {}:\n\n", means_heading(m)));
+                out.push_str(&text_table(&means_header(m), mean_rows(m)));
             }
             if !r.notes.is_empty() {
                 out.push_str("\nWhat needs attention:\n");
@@ -284,15 +280,70 @@ pub fn render(r: &AnalyzeReport, format: Format) -> String {
     }
 }
 
-fn mean_rows(m: &crate::analyze::MeansTable) -> Vec<Vec<String>> {
+/// `cultivar (6 observations per mean)`, or for unequal counts the raw means' heading.
+fn means_heading(m: &MeansTable) -> String {
+    match m.per_mean {
+        Some(n) => format!("{} ({n} observations per mean)", m.term),
+        None => format!("{} (raw means of the observations present; n is each one's count)", m.term),
+    }
+}
+
+fn means_header(m: &MeansTable) -> Vec<&str> {
+    let mut header: Vec<&str> = m.factors.iter().map(String::as_str).collect();
+    header.push("mean");
+    if m.per_mean.is_none() {
+        header.push("n");
+    }
+    header
+}
+
+fn mean_rows(m: &MeansTable) -> Vec<Vec<String>> {
     m.rows
         .iter()
         .map(|row| {
             let mut cells = row.levels.clone();
             cells.push(sig(row.mean));
+            if m.per_mean.is_none() {
+                cells.push(row.observations.to_string());
+            }
             cells
         })
         .collect()
+}
+
+/// What unbalanced data lack and how they were analysed, in one sentence.
+fn imbalance_text(r: &AnalyzeReport) -> Option<String> {
+    let i = r.imbalance.as_ref()?;
+    let mut missing = Vec::new();
+    if i.empty_cells > 0 {
+        missing.push(format!(
+            "{} empty",
+            count(i.empty_cells, "cell", "cells")
+        ));
+    }
+    if i.lost_observations > 0 {
+        missing.push(format!(
+            "{} missing from cells that have some",
+            count(i.lost_observations, "observation", "observations")
+        ));
+    }
+    let sums = match i.sums_of_squares {
+        SumsOfSquares::Sequential => format!(
+            "sequential (type I) sums of squares, terms fitted in the order {}",
+            i.fit_order.join(", ")
+        ),
+        SumsOfSquares::Type3 => "type III sums of squares (each term adjusted for every other)".into(),
+    };
+    Some(format!(
+        "Unbalanced data: {} of the layout's {} observations ({}). Analysed with {sums}; expected mean squares by Hartley's (1967) synthesis under the unrestricted model, error terms from them.",
+        r.observations,
+        i.full_observations,
+        missing.join(", ")
+    ))
+}
+
+fn count(n: u64, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
 }
 
 #[cfg(test)]

@@ -20,6 +20,29 @@ fn convention_note(c: Convention) -> &'static str {
     }
 }
 
+/// Why an unbalanced layout's report shows one convention.
+const UNBALANCED_CONVENTION: &str = "The layout is unbalanced, and only the unrestricted model is defined for it (the restricted convention's sums to zero run over unequal numbers of observations), so there is no other convention to compare with. The coefficients are numerical (Hartley's synthesis), not exact fractions.";
+
+/// What was removed from the full layout and which sums of squares the expected mean
+/// squares are of.
+fn unbalanced_sentence(u: &crate::unbalanced::report::Summary) -> String {
+    let what = match u.sums_of_squares {
+        crate::layout::SumsOfSquares::Sequential => format!(
+            "the expected mean squares are those of sequential sums of squares, the terms fitted in the order {}",
+            u.fit_order.join(", ")
+        ),
+        crate::layout::SumsOfSquares::Type3 => {
+            "the expected mean squares are those of type III sums of squares".to_string()
+        }
+    };
+    format!(
+        "Unbalanced: {} of the full layout's {} observations removed ({}); {what}.",
+        u.removed_observations,
+        u.full_observations,
+        u.removals.join("; ")
+    )
+}
+
 fn opt(x: Option<f64>, digits: usize) -> String {
     x.map_or("-".into(), |v| format!("{v:.digits$}"))
 }
@@ -113,28 +136,44 @@ pub fn html(r: &Report) -> String {
         );
     }
     h.push_str("</table>\n");
-    if r.differences.is_empty() {
-        let _ = writeln!(
-            h,
-            "<p>Under the {} convention every term would be tested over the same error term.</p>",
-            r.other_convention.name()
-        );
-    } else {
-        let _ = writeln!(
-            h,
-            "<p>Under the {} convention these terms would be tested differently:</p>\n<ul>",
-            r.other_convention.name()
-        );
-        for d in &r.differences {
+    if let Some(u) = &r.check.unbalanced {
+        let _ = writeln!(h, "<p>{}</p>", esc(&unbalanced_sentence(u)));
+        if !u.notes.is_empty() {
+            h.push_str("<ul>\n");
+            for n in &u.notes {
+                let _ = writeln!(h, "<li>{}</li>", esc(n));
+            }
+            h.push_str("</ul>\n");
+        }
+    }
+    match r.other_convention {
+        None => {
+            let _ = writeln!(h, "<p>{}</p>", esc(UNBALANCED_CONVENTION));
+        }
+        Some(other) if r.differences.is_empty() => {
             let _ = writeln!(
                 h,
-                "<li>{}: over {} here, over {} there.</li>",
-                esc(&d.label),
-                esc(&d.here),
-                esc(&d.there)
+                "<p>Under the {} convention every term would be tested over the same error term.</p>",
+                other.name()
             );
         }
-        h.push_str("</ul>\n");
+        Some(other) => {
+            let _ = writeln!(
+                h,
+                "<p>Under the {} convention these terms would be tested differently:</p>\n<ul>",
+                other.name()
+            );
+            for d in &r.differences {
+                let _ = writeln!(
+                    h,
+                    "<li>{}: over {} here, over {} there.</li>",
+                    esc(&d.label),
+                    esc(&d.here),
+                    esc(&d.there)
+                );
+            }
+            h.push_str("</ul>\n");
+        }
     }
     if !r.check.findings.is_empty() {
         h.push_str("<h3>What needs attention</h3>\n<ul>\n");
@@ -258,26 +297,32 @@ pub fn markdown(r: &Report, figure_prefix: &str) -> (String, Vec<(String, String
         convention_note(r.check.convention)
     );
     m.push_str(&super::check::render(&r.check, super::Format::Markdown).replacen("## ", "### ", 1));
-    if r.differences.is_empty() {
-        let _ = writeln!(
-            m,
-            "\nUnder the {} convention every term would be tested over the same error term.\n",
-            r.other_convention.name()
-        );
-    } else {
-        let _ = writeln!(
-            m,
-            "\nUnder the {} convention these terms would be tested differently:\n",
-            r.other_convention.name()
-        );
-        for d in &r.differences {
+    match r.other_convention {
+        None => {
+            let _ = writeln!(m, "\n{UNBALANCED_CONVENTION}\n");
+        }
+        Some(other) if r.differences.is_empty() => {
             let _ = writeln!(
                 m,
-                "- {}: over {} here, over {} there.",
-                d.label, d.here, d.there
+                "\nUnder the {} convention every term would be tested over the same error term.\n",
+                other.name()
             );
         }
-        m.push('\n');
+        Some(other) => {
+            let _ = writeln!(
+                m,
+                "\nUnder the {} convention these terms would be tested differently:\n",
+                other.name()
+            );
+            for d in &r.differences {
+                let _ = writeln!(
+                    m,
+                    "- {}: over {} here, over {} there.",
+                    d.label, d.here, d.there
+                );
+            }
+            m.push('\n');
+        }
     }
     m.push_str("## The tests that matter\n\n");
     for (i, k) in r.key_terms.iter().enumerate() {

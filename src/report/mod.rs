@@ -55,7 +55,9 @@ pub struct Report {
     pub factors: Vec<FactorRow>,
     pub diagram: String,
     pub check: CheckReport,
-    pub other_convention: Convention,
+    /// The convention the reviewer may ask about; none for an unbalanced layout, which
+    /// has the unrestricted model only.
+    pub other_convention: Option<Convention>,
     pub differences: Vec<ConventionDifference>,
     pub key_terms: Vec<KeyTerm>,
     pub planning: Vec<(String, String)>,
@@ -78,21 +80,26 @@ pub fn build(
         Convention::Unrestricted => Convention::Restricted,
     };
     let here = check_with_goal(layout, convention, plan, goal)?;
-    let there = check_with_goal(layout, other_convention, plan, goal)?;
-    let differences = here
-        .terms
-        .iter()
-        .zip(&there.terms)
-        .filter_map(|(a, b)| {
-            let (x, y) = (a.test.as_ref()?, b.test.as_ref()?);
-            let (tx, ty) = (over(x), over(y));
-            (tx != ty).then(|| ConventionDifference {
-                label: a.label.clone(),
-                here: tx,
-                there: ty,
-            })
-        })
-        .collect();
+    let other_convention = layout.is_balanced().then_some(other_convention);
+    let differences = match other_convention {
+        None => Vec::new(),
+        Some(other) => {
+            let there = check_with_goal(layout, other, plan, goal)?;
+            here.terms
+                .iter()
+                .zip(&there.terms)
+                .filter_map(|(a, b)| {
+                    let (x, y) = (a.test.as_ref()?, b.test.as_ref()?);
+                    let (tx, ty) = (over(x), over(y));
+                    (tx != ty).then(|| ConventionDifference {
+                        label: a.label.clone(),
+                        here: tx,
+                        there: ty,
+                    })
+                })
+                .collect()
+        }
+    };
 
     let factors: Vec<FactorRow> = s
         .factors
@@ -130,12 +137,18 @@ pub fn build(
         .collect();
     let diagram = svg::layout_diagram(&nodes, "Nesting and crossing of the factors");
 
+    // An unbalanced layout is fitted once for all its power curves.
+    let fitted = if layout.is_balanced() {
+        None
+    } else {
+        Some(crate::unbalanced::Analysis::new(layout)?)
+    };
     let key_terms = here
         .terms
         .iter()
         .filter(|t| !t.residual && t.test.is_some())
         .filter(|t| parse_term_label(s, &t.label).is_ok_and(|term| goal.covers(term.live)))
-        .map(|t| key_term(layout, plan, &here, t))
+        .map(|t| key_term(layout, fitted.as_ref(), plan, &here, t))
         .collect();
 
     Ok(Report {
@@ -252,21 +265,39 @@ fn describe(layout: &Layout) -> Vec<String> {
             omitted.join(", ")
         ));
     }
-    out.push(format!(
-        "Each cell holds {} observation{}: {} observations in all.",
+    let each = format!(
+        "{} observation{}",
         layout.levels.replicates,
         if layout.levels.replicates == 1 {
             ""
         } else {
             "s"
-        },
-        layout.observations()
-    ));
+        }
+    );
+    if layout.is_balanced() {
+        out.push(format!(
+            "Each cell holds {each}: {} observations in all.",
+            layout.observations()
+        ));
+    } else {
+        let removals: Vec<String> = layout
+            .removed
+            .iter()
+            .map(|r| r.describe(s))
+            .collect();
+        out.push(format!(
+            "Each cell of the full layout holds {each} ({} in all); the layout removes {}, leaving {}.",
+            layout.levels.observations(),
+            removals.join("; "),
+            layout.observations()
+        ));
+    }
     out
 }
 
 fn key_term(
     layout: &Layout,
+    fitted: Option<&crate::unbalanced::Analysis>,
     plan: &PlanningValues,
     report: &CheckReport,
     t: &TermReport,
@@ -278,17 +309,43 @@ fn key_term(
         Kind::Random => "standard deviation",
     };
     let why = if test.verdict.is_testable() {
+        // A fixed term's error term reproduces the random components and σ² of its
+        // expectation; another fixed term's κ² (which only an unbalanced layout's
+        // sequential sums of squares put there) it does not.
+        let fixed_other = |c: &crate::check::Component| {
+            t.kind == Kind::Fixed
+                && c.component != t.label
+                && report
+                    .terms
+                    .iter()
+                    .any(|u| u.label == c.component && !u.residual && u.kind == Kind::Fixed)
+        };
         let shared: Vec<&str> = t
             .ems
             .iter()
-            .filter(|c| c.component != t.label)
+            .filter(|c| c.component != t.label && !fixed_other(c))
             .map(|c| c.symbol.as_str())
             .collect();
-        format!(
+        let carried: Vec<&str> = t
+            .ems
+            .iter()
+            .filter(|c| fixed_other(c))
+            .map(|c| c.symbol.as_str())
+            .collect();
+        let mut why = format!(
             "E(MS) = {}; the error term's expectation holds everything but the term's own component: {}.",
             ems_text(t),
             shared.join(", ")
-        )
+        );
+        if !carried.is_empty() {
+            why = format!(
+                "E(MS) = {}; the error term's expectation holds its random components and σ²: {}. It also carries {}, which the error term does not: with sequential sums of squares the test is not of the term's own effects alone (see the notes).",
+                ems_text(t),
+                shared.join(", "),
+                carried.join(", ")
+            );
+        }
+        why
     } else {
         test.reason.clone().unwrap_or_default()
     };
@@ -296,6 +353,7 @@ fn key_term(
     let curve = if test.verdict.is_testable() && plan.has_priors() {
         power_curve(
             layout,
+            fitted,
             plan,
             live,
             t,
@@ -322,6 +380,7 @@ fn key_term(
 /// and the minimum detectable one.
 fn power_curve(
     layout: &Layout,
+    fitted: Option<&crate::unbalanced::Analysis>,
     plan: &PlanningValues,
     live: u32,
     t: &TermReport,
@@ -351,7 +410,11 @@ fn power_curve(
                     p.priors.insert(live, size);
                 }
             }
-            let power = outcome(layout, &p, live)?.power?;
+            let power = match fitted {
+                Some(a) => crate::unbalanced::report::outcome_of(a, layout, &p, live),
+                None => outcome(layout, &p, live),
+            }?
+            .power?;
             Some((size, power))
         })
         .collect();

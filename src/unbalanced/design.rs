@@ -88,22 +88,18 @@ impl Design {
             ));
         }
         let model = Model::new(&layout.structure);
-        let counts = removal::cell_counts(layout);
+        let kept_by_cell = removal::kept_replicates(layout);
         let strides = removal::strides(levels);
         let mut observations = Vec::new();
         let mut observation_row = Vec::new();
         let mut row_tuple = Vec::new();
         let mut row_count = Vec::new();
-        for (c, &n) in counts.iter().enumerate() {
-            if n == 0 {
+        for (c, kept) in kept_by_cell.into_iter().enumerate() {
+            if kept.is_empty() {
                 continue;
             }
+            let n = kept.len();
             let tuple = removal::cell_tuple(levels, &strides, c as u64);
-            let kept = if n == levels.replicates {
-                (0..n).collect()
-            } else {
-                removal::kept_replicates(layout, &tuple)
-            };
             for k in kept {
                 observations.push(Observation {
                     levels: tuple.clone(),

@@ -180,38 +180,60 @@ enum Gone {
 /// the first `upto` removals. The caller has checked the layout's size.
 fn counts_after(layout: &Layout, upto: usize) -> Vec<u64> {
     let levels = &layout.levels;
-    let cells = levels.cells();
     let strides = strides(levels);
-    let mut gone: Vec<Option<Gone>> = vec![None; cells as usize];
+    let mut gone: Vec<Option<Gone>> = vec![None; levels.cells() as usize];
     for r in &layout.removed[..upto] {
-        // Enumerate only the cells the removal covers: the unnamed factors range freely.
-        let free: Vec<usize> = (0..levels.per_factor.len())
-            .filter(|f| !r.at.iter().any(|(g, _)| g == f))
-            .collect();
-        let base: u64 = r.at.iter().map(|&(f, i)| i * strides[f]).sum();
-        let count: u64 = free.iter().map(|&f| levels.per_factor[f]).product();
-        for k in 0..count {
-            let mut rest = k;
-            let mut c = base;
-            for &f in free.iter().rev() {
-                let n = levels.per_factor[f];
-                c += (rest % n) * strides[f];
-                rest /= n;
+        apply(&mut gone, r, levels, &strides);
+    }
+    remaining(&gone, levels)
+}
+
+/// Marks what one removal takes from every cell it covers; returns how many observations
+/// it removed that were still there.
+fn apply(gone: &mut [Option<Gone>], r: &Removal, levels: &Levels, strides: &[u64]) -> u64 {
+    // Enumerate only the cells the removal covers: the unnamed factors range freely.
+    let free: Vec<usize> = (0..levels.per_factor.len())
+        .filter(|f| !r.at.iter().any(|(g, _)| g == f))
+        .collect();
+    let base: u64 = r.at.iter().map(|&(f, i)| i * strides[f]).sum();
+    let count: u64 = free.iter().map(|&f| levels.per_factor[f]).product();
+    let mut removed = 0;
+    for k in 0..count {
+        let mut rest = k;
+        let mut c = base;
+        for &f in free.iter().rev() {
+            let n = levels.per_factor[f];
+            c += (rest % n) * strides[f];
+            rest /= n;
+        }
+        let slot = &mut gone[c as usize];
+        match (r.replicate, slot.as_mut()) {
+            (None, None) => {
+                removed += levels.replicates;
+                *slot = Some(Gone::All);
             }
-            let slot = &mut gone[c as usize];
-            match (r.replicate, slot.as_mut()) {
-                (None, _) => *slot = Some(Gone::All),
-                (Some(_), Some(Gone::All)) => {}
-                (Some(x), Some(Gone::Some(v))) => {
-                    if !v.contains(&x) {
-                        v.push(x);
-                    }
+            (None, Some(Gone::Some(v))) => {
+                removed += levels.replicates - v.len() as u64;
+                *slot = Some(Gone::All);
+            }
+            (_, Some(Gone::All)) => {}
+            (Some(x), Some(Gone::Some(v))) => {
+                if !v.contains(&x) {
+                    v.push(x);
+                    removed += 1;
                 }
-                (Some(x), None) => *slot = Some(Gone::Some(vec![x])),
+            }
+            (Some(x), None) => {
+                removed += 1;
+                *slot = Some(Gone::Some(vec![x]));
             }
         }
     }
-    gone.into_iter()
+    removed
+}
+
+fn remaining(gone: &[Option<Gone>], levels: &Levels) -> Vec<u64> {
+    gone.iter()
         .map(|g| match g {
             None => levels.replicates,
             Some(Gone::All) => 0,
@@ -220,19 +242,79 @@ fn counts_after(layout: &Layout, upto: usize) -> Vec<u64> {
         .collect()
 }
 
+/// A level of a fixed factor (within a combination of its ancestors' levels that still
+/// has observations) with no observation among `counts` (by full cell): the factor and
+/// the level tuple (`u64::MAX` for the factors that do not index it). A lost unit of a
+/// random nest takes its fixed levels with it, and that is no fault.
+pub fn unobserved_fixed_level(layout: &Layout, counts: &[u64]) -> Option<(usize, Vec<u64>)> {
+    use std::collections::BTreeMap;
+    let s = &layout.structure;
+    let levels = &layout.levels;
+    let strides = strides(levels);
+    for (f, factor) in s.factors.iter().enumerate() {
+        if factor.kind != Kind::Fixed {
+            continue;
+        }
+        let keep = factor.ancestors | (1 << f);
+        let mut seen: BTreeMap<Vec<u64>, u64> = BTreeMap::new();
+        for (c, &n) in counts.iter().enumerate() {
+            let t = cell_tuple(levels, &strides, c as u64);
+            let key: Vec<u64> = (0..t.len())
+                .map(|g| if keep & (1 << g) != 0 { t[g] } else { u64::MAX })
+                .collect();
+            *seen.entry(key).or_insert(0) += n;
+        }
+        let mut nest_total: BTreeMap<Vec<u64>, u64> = BTreeMap::new();
+        for (key, n) in &seen {
+            let mut k = key.clone();
+            k[f] = u64::MAX;
+            *nest_total.entry(k).or_insert(0) += n;
+        }
+        let empty = seen.iter().find(|(key, n)| {
+            let mut k = (*key).clone();
+            k[f] = u64::MAX;
+            **n == 0 && nest_total[&k] > 0
+        });
+        if let Some((key, _)) = empty {
+            return Some((f, key.clone()));
+        }
+    }
+    None
+}
+
+/// `cultivar = 4 within light = 2` for factor f at a level tuple (1-based, as written).
+fn describe_level(s: &Structure, f: usize, key: &[u64]) -> String {
+    let factor = &s.factors[f];
+    let mut at = format!("{} = {}", factor.name, key[f] + 1);
+    let nests: Vec<String> = (0..key.len())
+        .filter(|&g| factor.ancestors & (1 << g) != 0)
+        .map(|g| format!("{} = {}", s.factors[g].name, key[g] + 1))
+        .collect();
+    if !nests.is_empty() {
+        at.push_str(&format!(" within {}", nests.join(", ")));
+    }
+    at
+}
+
 /// Observations left in every full cell after all removals.
 pub fn cell_counts(layout: &Layout) -> Vec<u64> {
     counts_after(layout, layout.removed.len())
 }
 
-/// Which replicates (0-based) are left in a cell.
-pub fn kept_replicates(layout: &Layout, cell: &[u64]) -> Vec<u64> {
-    (0..layout.levels.replicates)
-        .filter(|&k| {
-            !layout
-                .removed
-                .iter()
-                .any(|r| r.covers_cell(cell) && r.replicate.is_none_or(|x| x == k))
+/// Which replicates (0-based) are left in every full cell (in the order of
+/// `cell_counts`), after all removals.
+pub fn kept_replicates(layout: &Layout) -> Vec<Vec<u64>> {
+    let levels = &layout.levels;
+    let strides = strides(levels);
+    let mut gone: Vec<Option<Gone>> = vec![None; levels.cells() as usize];
+    for r in &layout.removed {
+        apply(&mut gone, r, levels, &strides);
+    }
+    gone.iter()
+        .map(|g| match g {
+            None => (0..levels.replicates).collect(),
+            Some(Gone::All) => Vec::new(),
+            Some(Gone::Some(v)) => (0..levels.replicates).filter(|k| !v.contains(k)).collect(),
         })
         .collect()
 }
@@ -295,12 +377,13 @@ pub fn validate(layout: &Layout) -> Result<(), (Option<usize>, String)> {
             ),
         ));
     }
+    // Each removal must remove something new, and something must be left.
     let strides = strides(levels);
-    let mut before: u64 = observations;
-    for (k, r) in layout.removed.iter().enumerate() {
-        let counts = counts_after(layout, k + 1);
-        let left: u64 = counts.iter().sum();
-        if left == before {
+    let mut gone: Vec<Option<Gone>> = vec![None; levels.cells() as usize];
+    let mut left: u64 = observations;
+    for r in &layout.removed {
+        let removed = apply(&mut gone, r, levels, &strides);
+        if removed == 0 {
             return Err((
                 r.line,
                 format!(
@@ -309,61 +392,40 @@ pub fn validate(layout: &Layout) -> Result<(), (Option<usize>, String)> {
                 ),
             ));
         }
-        before = left;
+        left -= removed;
         if left == 0 {
             return Err((
                 r.line,
                 "the removals leave no observation at all".to_string(),
             ));
         }
-        // A level of a fixed factor (within each combination of its ancestors) with no
-        // observation left cannot be compared with the others.
-        for (f, factor) in s.factors.iter().enumerate() {
-            if factor.kind != Kind::Fixed {
-                continue;
-            }
-            let keep = factor.ancestors | (1 << f);
-            let mut seen: std::collections::BTreeMap<Vec<u64>, u64> = Default::default();
-            for (c, &n) in counts.iter().enumerate() {
-                let t = cell_tuple(levels, &strides, c as u64);
-                let key: Vec<u64> = (0..t.len())
-                    .map(|g| if keep & (1 << g) != 0 { t[g] } else { u64::MAX })
-                    .collect();
-                *seen.entry(key).or_insert(0) += n;
-            }
-            // Only where the nest itself still has observations: a lost unit of a
-            // random nest takes its fixed levels with it.
-            let mut nest_total: std::collections::BTreeMap<Vec<u64>, u64> = Default::default();
-            for (key, n) in &seen {
-                let mut k = key.clone();
-                k[f] = u64::MAX;
-                *nest_total.entry(k).or_insert(0) += n;
-            }
-            let empty = seen.iter().find(|(key, n)| {
-                let mut k = (*key).clone();
-                k[f] = u64::MAX;
-                **n == 0 && nest_total[&k] > 0
-            });
-            if let Some((key, _)) = empty {
-                let mut at = format!("{} = {}", factor.name, key[f] + 1);
-                let nests: Vec<String> = (0..key.len())
-                    .filter(|&g| factor.ancestors & (1 << g) != 0)
-                    .map(|g| format!("{} = {}", s.factors[g].name, key[g] + 1))
-                    .collect();
-                if !nests.is_empty() {
-                    at.push_str(&format!(" within {}", nests.join(", ")));
-                }
-                return Err((
-                    r.line,
-                    format!(
-                        "the removal {} leaves no observation at {at}: a fixed level that is never observed cannot be compared, so {} could not be tested there; give {} one level fewer instead, or keep part of that level",
-                        r.describe(s),
-                        factor.name,
-                        factor.name
-                    ),
-                ));
+    }
+    // A fixed level left without observations: more removals only empty more levels, so
+    // the first removal at fault is found by bisection over the removals.
+    if unobserved_fixed_level(layout, &remaining(&gone, levels)).is_some() {
+        let (mut fine, mut fails) = (0, layout.removed.len());
+        while fails - fine > 1 {
+            let mid = (fine + fails) / 2;
+            if unobserved_fixed_level(layout, &counts_after(layout, mid)).is_some() {
+                fails = mid;
+            } else {
+                fine = mid;
             }
         }
+        let r = &layout.removed[fails - 1];
+        let (f, key) = unobserved_fixed_level(layout, &counts_after(layout, fails))
+            .expect("bisection ends at a failing prefix");
+        let factor = &s.factors[f];
+        return Err((
+            r.line,
+            format!(
+                "the removal {} leaves no observation at {}: a fixed level that is never observed cannot be compared, so {} could not be tested there; give {} one level fewer instead, or keep part of that level",
+                r.describe(s),
+                describe_level(s, f, &key),
+                factor.name,
+                factor.name
+            ),
+        ));
     }
     Ok(())
 }

@@ -35,7 +35,12 @@ pub struct Summary {
 
 /// How the term is tested, for the repair search and `compare`.
 pub fn outcome(layout: &Layout, plan: &PlanningValues, live: Mask) -> Option<Outcome> {
-    let a = Analysis::new(layout).ok()?;
+    outcome_of(&Analysis::new(layout).ok()?, layout, plan, live)
+}
+
+/// `outcome` for a layout already fitted (`a` is `Analysis::new(layout)`), so that many
+/// planning values can be tried on one synthesis.
+pub fn outcome_of(a: &Analysis, layout: &Layout, plan: &PlanningValues, live: Mask) -> Option<Outcome> {
     let t = a.design.model.terms.iter().position(|u| u.live == live)?;
     let e = a.tests[t].as_ref()?;
     let plans = plan_tests(&a.design.model, &a.ems, &a.fit.df, &a.tests, plan, layout);

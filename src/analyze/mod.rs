@@ -36,26 +36,59 @@ use std::path::Path;
 
 use serde::Serialize;
 
+mod unbalanced;
+
 use crate::balanced::{Balanced, cell_summaries, index_in};
 use crate::check::{Analysis, DenominatorPart, symbol};
 use crate::dist;
 use crate::error::Error;
 use crate::errorterm::Verdict;
-use crate::layout::{Convention, Kind, Layout};
+use crate::layout::{Convention, Kind, Layout, SumsOfSquares};
 use crate::planning::{satterthwaite, to_f64};
 use crate::term::Mask;
 
-/// Balanced observations read from a data file, in cell order.
+/// Observations read from a data file, in cell order.
 #[derive(Debug, Clone)]
 pub struct Observations {
     /// The file they came from, for messages.
     pub path: String,
     pub response: String,
-    /// Responses cell by cell (cells as in `balanced`), replicates in the order read.
+    /// Responses cell by cell (cells as in `balanced`), in the order read within a cell.
     pub y: Vec<f64>,
+    /// Observations in every cell: the layout's replicates when the data are balanced,
+    /// fewer (or none) where observations are missing.
+    pub counts: Vec<usize>,
     /// `labels[j][nest][level]`: the label of factor j's level within a nest, the nest
-    /// being the index of the combination of j's ancestors' levels.
+    /// being the index of the combination of j's ancestors' levels. A nest can hold fewer
+    /// labels than the layout's levels when a level has no observation.
     pub labels: Vec<Vec<Vec<String>>>,
+    /// Lines of the rows whose response is missing (empty or `NA`); they are left out.
+    pub missing_lines: Vec<usize>,
+}
+
+impl Observations {
+    /// Whether every cell holds all the layout's replicates.
+    pub fn is_balanced(&self, replicates: usize) -> bool {
+        self.counts.iter().all(|&c| c == replicates)
+    }
+
+    /// Where each cell's observations start in `y`.
+    pub fn offsets(&self) -> Vec<usize> {
+        let mut at = 0;
+        self.counts
+            .iter()
+            .map(|&c| {
+                let here = at;
+                at += c;
+                here
+            })
+            .collect()
+    }
+}
+
+/// Whether a response field means "no value": empty, or `NA` in any case.
+fn is_missing(text: &str) -> bool {
+    text.is_empty() || text.eq_ignore_ascii_case("na")
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -67,11 +100,27 @@ pub struct AnalyzeReport {
     pub observations: u64,
     pub alpha: f64,
     pub grand_mean: f64,
+    /// How the data fall short of the full layout, when they do.
+    pub imbalance: Option<Imbalance>,
     pub terms: Vec<AnovaRow>,
     pub components: Vec<ComponentEstimate>,
     pub means: Vec<MeansTable>,
     /// What needs attention: negative estimates, synthetic denominators below zero, ...
     pub notes: Vec<String>,
+}
+
+/// Unbalanced data: what is missing, and which sums of squares were used.
+#[derive(Debug, Clone, Serialize)]
+pub struct Imbalance {
+    /// Observations of the full layout.
+    pub full_observations: u64,
+    /// Cells of the full layout with no observation.
+    pub empty_cells: u64,
+    /// Observations missing from cells that hold some.
+    pub lost_observations: u64,
+    pub sums_of_squares: SumsOfSquares,
+    /// The order the terms were fitted in (what sequential sums of squares adjust for).
+    pub fit_order: Vec<String>,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -116,8 +165,8 @@ pub struct MeansTable {
     pub term: String,
     /// The factors whose levels index the table (the term's live and nesting factors).
     pub factors: Vec<String>,
-    /// Observations behind each mean.
-    pub per_mean: u64,
+    /// Observations behind each mean, when it is the same for every mean (balanced data).
+    pub per_mean: Option<u64>,
     pub rows: Vec<MeanRow>,
 }
 
@@ -125,12 +174,16 @@ pub struct MeansTable {
 pub struct MeanRow {
     pub levels: Vec<String>,
     pub mean: f64,
+    /// Observations behind the mean.
+    pub observations: u64,
 }
 
 /// The advice that goes with a negative variance component estimate.
 pub const NEGATIVE_ADVICE: &str = "a negative estimate says the variance is small next to its sampling error; common practice is to report it as zero and to consider a model without the term (pooling its mean square into its error term), a choice best made with a statistician";
 
-/// Reads a long-format CSV file of a layout's observations and checks it is balanced.
+/// Reads a long-format CSV file of a layout's observations: every row in one of the
+/// layout's cells, no cell with more than its replicates (fewer, or none, make the data
+/// unbalanced).
 pub fn read_data(
     path: &Path,
     layout: &Layout,
@@ -278,14 +331,30 @@ pub fn parse_data(
     let mut ids: Vec<HashMap<String, u32>> = vec![HashMap::new(); k];
     let mut raw: Vec<u32> = Vec::new();
     let mut rows: Vec<Row> = Vec::new();
+    let mut missing_lines: Vec<usize> = Vec::new();
     let mut record = csv::StringRecord::new();
+    let (mut counted_to, mut counted_line) = (0usize, 1usize);
     loop {
         match reader.read_record(&mut record) {
             Ok(true) => {}
             Ok(false) => break,
             Err(e) => return Err(csv_error(name, &e)),
         }
-        let line = record.position().map_or(0, |p| p.line() as usize);
+        // Lines counted from the bytes: the reader's own count drifts on CRLF files.
+        let line = match record.position() {
+            Some(p) => {
+                let mut at = (p.byte() as usize).min(bytes.len());
+                // On CRLF files the record is placed at the line feed that ends the
+                // line before it.
+                while at < bytes.len() && matches!(bytes[at], b'\r' | b'\n') {
+                    at += 1;
+                }
+                counted_line += bytes[counted_to..at].iter().filter(|&&b| b == b'\n').count();
+                counted_to = at;
+                counted_line
+            }
+            None => 0,
+        };
         if record.len() != header.len() {
             return Err(fail(
                 Some(line),
@@ -296,6 +365,19 @@ pub fn parse_data(
                 ),
             ));
         }
+        let text = &record[response_col];
+        if is_missing(text) {
+            missing_lines.push(line);
+            continue;
+        }
+        let y: f64 = text.parse().ok().filter(|v: &f64| v.is_finite()).ok_or_else(|| {
+            fail(
+                Some(line),
+                format!(
+                    "the response \"{response_name}\" is \"{text}\", which is not a finite number: write a number such as 12.5 (or leave it empty, or NA, for a missing value)"
+                ),
+            )
+        })?;
         for j in 0..k {
             let label = &record[factor_col[j]];
             if label.is_empty() {
@@ -318,30 +400,21 @@ pub fn parse_data(
             };
             raw.push(id);
         }
-        let text = &record[response_col];
-        if text.is_empty() {
-            return Err(fail(
-                Some(line),
-                format!(
-                    "the response \"{response_name}\" is missing: analyze needs a value in every row (data with missing values are unbalanced, which needs the unbalanced-layouts feature, not yet built)"
-                ),
-            ));
-        }
-        let y: f64 = text.parse().ok().filter(|v: &f64| v.is_finite()).ok_or_else(|| {
-            fail(
-                Some(line),
-                format!(
-                    "the response \"{response_name}\" is \"{text}\", which is not a finite number: write a number such as 12.5"
-                ),
-            )
-        })?;
         rows.push(Row { cell: 0, line, y });
     }
     if rows.is_empty() {
+        let why = if missing_lines.is_empty() {
+            "the file has a header but no data rows".to_string()
+        } else {
+            format!(
+                "every one of the {} rows has no response value",
+                missing_lines.len()
+            )
+        };
         return Err(fail(
             Some(1),
             format!(
-                "the file has a header but no data rows: add one row per observation ({} in all)",
+                "{why}: add one row per observation ({} in the layout)",
                 layout.observations()
             ),
         ));
@@ -410,37 +483,10 @@ pub fn parse_data(
     for (i, row) in rows.iter_mut().enumerate() {
         row.cell = balanced_shape.cell(&level_of[i * k..(i + 1) * k]);
     }
-    // What is absent is reported at the end of the data, the line by which it was due.
-    let end = rows.last().map(|r| r.line);
-    // Every nest must hold every level.
-    for &j in &order {
-        let f = &s.factors[j];
-        for (nest, known) in labels[j].iter().enumerate() {
-            if known.len() < levels[j] {
-                let within = nest_text(layout, &labels, j, nest);
-                return Err(fail(
-                    end,
-                    format!(
-                        "at the end of the data, the factor \"{}\" has {} level{}{within} ({}), but the layout declares {}: add the missing level's rows, or change the layout's levels",
-                        f.name,
-                        known.len(),
-                        if known.len() == 1 { "" } else { "s" },
-                        if known.is_empty() {
-                            "none".to_string()
-                        } else {
-                            known.join(", ")
-                        },
-                        levels[j]
-                    ),
-                ));
-            }
-        }
-    }
-    // Every cell must hold exactly its replicates.
+    // No cell may hold more than its replicates; fewer (or none) make the data unbalanced.
     let cells = balanced_shape.cells();
     let mut count = vec![0usize; cells];
     let mut y = vec![0.0; cells * r];
-    let mut first_line: Vec<usize> = vec![0; cells];
     for row in &rows {
         let c = row.cell;
         if count[c] == r {
@@ -460,36 +506,20 @@ pub fn parse_data(
                 ),
             ));
         }
-        if count[c] == 0 {
-            first_line[c] = row.line;
-        }
         y[c * r + count[c]] = row.y;
         count[c] += 1;
     }
-    if let Some(c) = (0..cells).find(|&c| count[c] < r) {
-        let (line, what) = if count[c] == 0 {
-            (end, "at the end of the data, the cell".to_string())
-        } else {
-            (Some(first_line[c]), "the cell".to_string())
-        };
-        let has = if count[c] == 0 {
-            "no rows".to_string()
-        } else {
-            format!("only {} of its {r} replicates", count[c])
-        };
-        return Err(fail(
-            line,
-            format!(
-                "{what} {} has {has}, so the data are unbalanced: analyze needs every cell with all its replicates (unbalanced data need the unbalanced-layouts feature, not yet built)",
-                cell_text(layout, &balanced_shape, &labels, c)
-            ),
-        ));
+    let mut packed = Vec::with_capacity(rows.len());
+    for c in 0..cells {
+        packed.extend_from_slice(&y[c * r..c * r + count[c]]);
     }
     Ok(Observations {
         path: name.to_string(),
         response: response_name,
-        y,
+        y: packed,
+        counts: count,
         labels,
+        missing_lines,
     })
 }
 
@@ -525,32 +555,8 @@ fn nest_text_at(layout: &Layout, labels: &[Vec<Vec<String>>], j: usize, at: &[us
     }
 }
 
-/// ` within light = light2` for nest `nest` of factor j, from the labels read.
-fn nest_text(layout: &Layout, labels: &[Vec<Vec<String>>], j: usize, nest: usize) -> String {
-    let s = &layout.structure;
-    let anc = s.factors[j].ancestors;
-    if anc == 0 {
-        return String::new();
-    }
-    let levels: Vec<usize> = layout
-        .levels
-        .per_factor
-        .iter()
-        .map(|&n| n as usize)
-        .collect();
-    let mut at = vec![0usize; levels.len()];
-    let mut rest = nest;
-    for a in (0..levels.len()).rev() {
-        if anc & (1 << a) != 0 {
-            at[a] = rest % levels[a];
-            rest /= levels[a];
-        }
-    }
-    format!(" within {}", describe(layout, labels, anc, &at))
-}
-
 /// `light = light1, chamber = chamber2` for the factors of `mask` at level indices `at`.
-fn describe(layout: &Layout, labels: &[Vec<Vec<String>>], mask: Mask, at: &[usize]) -> String {
+pub(crate) fn describe(layout: &Layout, labels: &[Vec<Vec<String>>], mask: Mask, at: &[usize]) -> String {
     let s = &layout.structure;
     let levels: Vec<usize> = layout
         .levels
@@ -625,14 +631,25 @@ pub fn moment_estimates(a: &Analysis, ms: &[f64]) -> Vec<Option<f64>> {
     theta
 }
 
-/// Runs the analysis of balanced observations under the layout's convention.
+/// Runs the analysis of variance of the observations: the balanced one under the layout's
+/// convention when every cell holds all its replicates, else the unbalanced one (see
+/// `unbalanced`).
 pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<AnalyzeReport, Error> {
+    if !data.is_balanced(layout.levels.replicates as usize) {
+        return unbalanced::analyze(layout, data, alpha);
+    }
     let a = Analysis::new(layout)?;
     let s = &layout.structure;
     let b = Balanced::new(&a.model, &layout.levels)?;
     let (ss, ms, grand_mean) = anova_numbers(&b, &data.y);
     let labels: Vec<String> = a.model.terms.iter().map(|t| t.label(s)).collect();
-    let mut notes = Vec::new();
+    let mut notes = data_notes(data);
+    if !layout.is_balanced() {
+        notes.push(format!(
+            "the layout removes {} but the data hold every observation of the full layout: they are analysed as the balanced data they are",
+            plural(layout.removed.len(), "cell or observation", "cells or observations")
+        ));
+    }
 
     let terms: Vec<AnovaRow> = a
         .model
@@ -641,6 +658,8 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
         .enumerate()
         .map(|(t, term)| {
             let test = a.tests[t].as_ref().map(|e| {
+                let parts: Vec<(usize, f64)> =
+                    e.denominator.iter().map(|(v, w)| (*v, to_f64(w))).collect();
                 let denominator = e
                     .denominator
                     .iter()
@@ -649,48 +668,18 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
                         coefficient: crate::check::Coefficient::Exact(w),
                     })
                     .collect();
-                let mut out = AnovaTest {
-                    verdict: e.verdict,
+                planned_test(
+                    e.verdict,
                     denominator,
-                    denominator_ms: None,
-                    denominator_df: None,
-                    f: None,
-                    p: None,
-                };
-                if !e.verdict.is_testable() {
-                    return out;
-                }
-                let d: f64 = e.denominator.iter().map(|(v, w)| to_f64(w) * ms[*v]).sum();
-                out.denominator_ms = Some(d);
-                let df2 = match e.verdict {
-                    Verdict::Exact => Some(a.df[e.denominator[0].0] as f64),
-                    _ => satterthwaite(
-                        &e.denominator
-                            .iter()
-                            .map(|&(v, w)| (to_f64(&w), ms[v], a.df[v]))
-                            .collect::<Vec<_>>(),
-                    ),
-                };
-                out.denominator_df = df2;
-                if d > 0.0 && d.is_finite() {
-                    let f = ms[t] / d;
-                    out.f = Some(f);
-                    if let Some(df2) = df2 {
-                        out.p = Some(dist::f_sf(f, a.df[t] as f64, df2));
-                    }
-                } else if e.verdict == Verdict::Synthetic {
-                    notes.push(format!(
-                        "{}: the synthetic denominator is {} for these data (a combination of mean squares with negative weights), so there is no quasi-F; the terms it subtracts are large next to those it adds",
-                        labels[t],
-                        crate::render::num(d)
-                    ));
-                } else {
-                    notes.push(format!(
-                        "{}: its error term's mean square is zero for these data, so there is no F",
-                        labels[t]
-                    ));
-                }
-                out
+                    &parts,
+                    Numbers {
+                        ms: &ms,
+                        df: &a.df,
+                    },
+                    t,
+                    &labels[t],
+                    &mut notes,
+                )
             });
             AnovaRow {
                 label: labels[t].clone(),
@@ -705,14 +694,129 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
         .collect();
 
     let theta = moment_estimates(&a, &ms);
-    let components: Vec<ComponentEstimate> = (0..a.model.terms.len())
-        .filter(|&t| a.model.kinds[t] == Kind::Random)
+    let components = component_estimates(&a.model, &labels, &theta, &mut notes);
+    let means = means_tables(layout, &a, &b, data, grand_mean);
+    Ok(AnalyzeReport {
+        name: layout.name.clone(),
+        convention: s.convention,
+        data: data.path.clone(),
+        response: data.response.clone(),
+        observations: data.y.len() as u64,
+        alpha,
+        grand_mean,
+        imbalance: None,
+        terms,
+        components,
+        means,
+        notes,
+    })
+}
+
+/// Notes on what was read: rows left out for a missing response.
+pub(crate) fn data_notes(data: &Observations) -> Vec<String> {
+    const SHOWN: usize = 10;
+    if data.missing_lines.is_empty() {
+        return Vec::new();
+    }
+    let mut lines: Vec<String> = data
+        .missing_lines
+        .iter()
+        .take(SHOWN)
+        .map(|l| l.to_string())
+        .collect();
+    if data.missing_lines.len() > SHOWN {
+        lines.push("...".into());
+    }
+    vec![format!(
+        "{} no response value and {} left out (line{} {})",
+        plural(data.missing_lines.len(), "row has", "rows have"),
+        if data.missing_lines.len() == 1 { "is" } else { "are" },
+        if data.missing_lines.len() == 1 { "" } else { "s" },
+        lines.join(", ")
+    )]
+}
+
+/// `1 cell` or `3 cells`.
+pub(crate) fn plural(n: usize, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
+}
+
+/// Every term's mean square (NaN for 0 df) and df, the residual last.
+#[derive(Debug, Clone, Copy)]
+pub(crate) struct Numbers<'a> {
+    pub ms: &'a [f64],
+    pub df: &'a [u64],
+}
+
+/// A term's planned test on the data: F (or the quasi-F, with Satterthwaite's df from the
+/// observed mean squares) over the denominator Σ wᵥ MSᵥ given by `parts`, and its p.
+/// Adds a note when the denominator is not positive for these data.
+pub(crate) fn planned_test(
+    verdict: Verdict,
+    denominator: Vec<DenominatorPart>,
+    parts: &[(usize, f64)],
+    x: Numbers,
+    t: usize,
+    label: &str,
+    notes: &mut Vec<String>,
+) -> AnovaTest {
+    let mut out = AnovaTest {
+        verdict,
+        denominator,
+        denominator_ms: None,
+        denominator_df: None,
+        f: None,
+        p: None,
+    };
+    if !verdict.is_testable() {
+        return out;
+    }
+    let d: f64 = parts.iter().map(|(v, w)| w * x.ms[*v]).sum();
+    out.denominator_ms = Some(d);
+    let df2 = match verdict {
+        Verdict::Exact => Some(x.df[parts[0].0] as f64),
+        _ => satterthwaite(
+            &parts
+                .iter()
+                .map(|&(v, w)| (w, x.ms[v], x.df[v]))
+                .collect::<Vec<_>>(),
+        ),
+    };
+    out.denominator_df = df2;
+    if d > 0.0 && d.is_finite() {
+        let f = x.ms[t] / d;
+        out.f = Some(f);
+        if let Some(df2) = df2 {
+            out.p = Some(dist::f_sf(f, x.df[t] as f64, df2));
+        }
+    } else if verdict == Verdict::Synthetic {
+        notes.push(format!(
+            "{label}: the synthetic denominator is {} for these data (a combination of mean squares with negative weights), so there is no quasi-F; the terms it subtracts are large next to those it adds",
+            crate::render::num(d)
+        ));
+    } else {
+        notes.push(format!(
+            "{label}: its error term's mean square is zero for these data, so there is no F"
+        ));
+    }
+    out
+}
+
+/// The random terms' component estimates, with notes on negative and missing ones.
+pub(crate) fn component_estimates(
+    model: &crate::ems::Model,
+    labels: &[String],
+    theta: &[Option<f64>],
+    notes: &mut Vec<String>,
+) -> Vec<ComponentEstimate> {
+    let components: Vec<ComponentEstimate> = (0..model.terms.len())
+        .filter(|&t| model.kinds[t] == Kind::Random)
         .map(|t| {
             let estimate = theta[t];
             let negative = estimate.is_some_and(|v| v < 0.0);
             ComponentEstimate {
                 term: labels[t].clone(),
-                symbol: symbol(&a.model, t),
+                symbol: symbol(model, t),
                 estimate,
                 sd: estimate.filter(|v| *v >= 0.0).map(f64::sqrt),
                 negative,
@@ -741,21 +845,7 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
             missing.join(", ")
         ));
     }
-
-    let means = means_tables(layout, &a, &b, data, grand_mean);
-    Ok(AnalyzeReport {
-        name: layout.name.clone(),
-        convention: s.convention,
-        data: data.path.clone(),
-        response: data.response.clone(),
-        observations: layout.observations(),
-        alpha,
-        grand_mean,
-        terms,
-        components,
-        means,
-        notes,
-    })
+    components
 }
 
 /// Means over the cells of every fixed term (its live and nesting factors).
@@ -801,13 +891,14 @@ fn means_tables(
                     MeanRow {
                         levels: labels,
                         mean: grand_mean + total / per as f64,
+                        observations: per as u64,
                     }
                 })
                 .collect();
             MeansTable {
                 term: term.label(s),
                 factors: factors.iter().map(|&j| s.factors[j].name.clone()).collect(),
-                per_mean: per as u64,
+                per_mean: Some(per as u64),
                 rows,
             }
         })
