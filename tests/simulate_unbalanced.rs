@@ -461,6 +461,68 @@ fn written_mean_squares_are_the_files() {
     assert!((own_mean - grand).abs() < 1e-9 * grand);
 }
 
+/// `emsplan analyze` reads a data set written for an unbalanced layout (it finds the
+/// missing cells and observations in the data) and gets the mean squares simulate
+/// reported for it, with sequential and with type III sums of squares.
+#[test]
+fn written_data_round_trip_through_analyze() {
+    let dir = scratch("round-trip");
+    let text = shipped("problems/unbalanced-lost-chamber.toml");
+    for ss in ["sequential", "type3"] {
+        let layout = dir.join(format!("chambers-{ss}.toml"));
+        std::fs::write(
+            &layout,
+            text.replace(
+                "replicates = 3\n",
+                &format!("replicates = 3\nsums_of_squares = \"{ss}\"\n"),
+            ),
+        )
+        .unwrap();
+        let data = dir.join(format!("chambers-{ss}.csv"));
+        let (layout, data) = (layout.to_str().unwrap(), data.to_str().unwrap());
+        let args = [
+            "simulate", layout, "--runs", "0", "--seed", "8", "--mean", "12", "--data", data,
+            "--format", "json",
+        ];
+        let out = emsplan(&args, "2");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let sim: Value = serde_json::from_slice(&out.stdout).unwrap();
+        assert_eq!(sim["unbalanced"]["sums_of_squares"], ss);
+        let out = emsplan(&["analyze", layout, data, "--format", "json"], "2");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        let ana: Value = serde_json::from_slice(&out.stdout).unwrap();
+        let written = sim["data"]["mean_squares"].as_array().unwrap();
+        let terms = ana["terms"].as_array().unwrap();
+        assert_eq!(written.len(), terms.len());
+        for (w, t) in written.iter().zip(terms) {
+            assert_eq!(w["term"], t["label"], "{ss}");
+            assert_eq!(w["df"], t["df"], "{ss}: {}", w["term"]);
+            if let (Some(a), Some(b)) = (w["ms"].as_f64(), t["ms"].as_f64()) {
+                assert!(
+                    (a - b).abs() <= 1e-12 * a.abs(),
+                    "{ss}: {}: {a} vs {b}",
+                    w["term"]
+                );
+            } else {
+                assert!(
+                    w["ms"].is_null() && t["ms"].is_null(),
+                    "{ss}: {}",
+                    w["term"]
+                );
+            }
+        }
+        assert_eq!(ana["observations"], 95);
+    }
+}
+
 fn emsplan(args: &[&str], threads: &str) -> std::process::Output {
     Command::new(BIN)
         .current_dir(root())

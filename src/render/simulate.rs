@@ -259,15 +259,8 @@ fn explanation(r: &SimulateReport) -> Vec<String> {
 
 fn data_text(r: &SimulateReport) -> Option<(String, Vec<Vec<String>>)> {
     let d = r.data.as_ref()?;
-    let whose = match r.unbalanced.as_ref().map(|u| u.sums_of_squares) {
-        None => "which `emsplan analyze` finds from the file",
-        Some(SumsOfSquares::Sequential) => {
-            "from the sequential sums of squares of the values in the file"
-        }
-        Some(SumsOfSquares::Type3) => "from the type III sums of squares of the values in the file",
-    };
     let line = format!(
-        "Wrote {} observations to {}: the first data set of seed {}, drawn around a grand mean of {} (its own grand mean is {}), responses to {} decimals. Its mean squares, {whose}:",
+        "Wrote {} observations to {}: the first data set of seed {}, drawn around a grand mean of {} (its own grand mean is {}), responses to {} decimals. Its mean squares, which `emsplan analyze` finds from the file:",
         d.observations,
         d.path,
         r.seed,
