@@ -295,7 +295,6 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             }
             let args = PlanningArgs { alpha, power: None };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
-            balanced_only(&layout, &layout_path, "simulate")?;
             let request = crate::simulate::Request {
                 seed,
                 runs,

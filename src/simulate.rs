@@ -39,6 +39,27 @@
 //! effects of a term are constant within cells, the null data set differs from the run's
 //! only in its cell totals, so the per-observation work is done once per run.
 //!
+//! # Unbalanced layouts
+//!
+//! A layout with removals is drawn exactly as its full layout (the same effects, the same
+//! generator streams), and the observations the removals take are dropped: a run's data
+//! set is the full layout's less the removed observations. Each kept observation is found
+//! in the full layout by the balanced engine's own cell numbering from its level tuple.
+//! Sums of squares are `unbalanced::Fit::sums_of_squares` (sequential or type III, as the
+//! layout says), mean squares SS / df with the fit's df, and the tests are the synthesis
+//! error terms (`unbalanced::denominator`), exact F or quasi-F with Satterthwaite df from
+//! the run's own mean squares. The null data set is the kept observations less the term's
+//! own effects. Only the unrestricted model with infinite populations reaches here (the
+//! layout refuses the rest).
+//!
+//! Expected mean squares, Hartley (1967): E(y'Ay) = σ² tr(A) + Σ_U σ²_U tr(A Z_U Z_U') +
+//! μ'Aμ. The random part is the synthesis coefficients times the priors. The fixed part
+//! μ'Aμ depends on the pattern of the fixed effects in an unbalanced layout; the synthesis
+//! gives its average over patterns, but the simulator draws one pattern, so it is computed
+//! exactly: the sum of squares of the noise-free fixed mean μ through the same fit, divided
+//! by df. The analytic power of a fixed term is likewise that of the simulated pattern,
+//! with noncentrality λ = SS_T(μ) / E(D) and the planned denominator df.
+//!
 //! Rejection rates carry Wilson's (1927) score interval,
 //! (p̂ + z²/2n ± z √(p̂(1 - p̂)/n + z²/4n²)) / (1 + z²/n), and are flagged when the value
 //! they are held against (alpha, or the analytic power) lies outside it.
@@ -51,13 +72,16 @@ use serde::Serialize;
 
 use crate::analyze::anova_numbers;
 use crate::balanced::{self, Balanced, index_in, odometer};
-use crate::check::{Analysis, DenominatorPart};
+use crate::check::{Analysis, Coefficient, DenominatorPart};
 use crate::dist::{self, CriticalValue};
 use crate::error::Error;
 use crate::errorterm::Verdict;
-use crate::layout::{Convention, Kind, Layout};
-use crate::planning::{Effect, PlanningValues, ems_values, plan_tests, to_f64};
+use crate::layout::{Convention, Kind, Layout, SumsOfSquares};
+use crate::planning::{
+    Effect, PlanningValues, TestPlan, component_values, ems_values, plan_tests, to_f64,
+};
 use crate::term::REPLICATE;
+use crate::unbalanced;
 
 /// Confidence level of the intervals around simulated rates and mean squares.
 pub const CONFIDENCE: f64 = 0.99;
@@ -134,10 +158,32 @@ struct PlannedTest {
     own: Own,
 }
 
+/// What a layout with removals adds: the observations it keeps, their fit, and where
+/// each sits in the full layout.
+struct Kept {
+    analysis: unbalanced::Analysis,
+    /// Index among the full layout's observations (cell × replicates + replicate) of each
+    /// kept observation, in the design's order.
+    observation: Vec<usize>,
+    /// Full cell of each kept observation.
+    cell: Vec<usize>,
+    /// Sums of squares of the noise-free fixed mean μ over the kept observations, every
+    /// term (residual last): μ'Aμ for the simulated pattern.
+    fixed_ss: Vec<f64>,
+    /// Of each planned test: the sum of squares of its term for μ less the term's own
+    /// effects (if it has any), what its null data sets still carry of the other fixed
+    /// terms.
+    null_fixed_ss: Vec<f64>,
+}
+
 /// A layout's model at its planning values, ready to draw data sets from.
 pub struct Simulator {
     pub analysis: Analysis,
     balanced: Balanced,
+    /// Present when the layout has removals.
+    kept: Option<Kept>,
+    /// df of every term as analysed: the balanced ones, or the fit's after the removals.
+    df: Vec<u64>,
     alpha: f64,
     /// Fixed effects of each fixed term over the full cells, and their sum.
     fixed: Vec<Vec<f64>>,
@@ -170,6 +216,10 @@ pub struct Scratch {
     ss: Vec<f64>,
     ms: Vec<f64>,
     balanced: balanced::Scratch,
+    /// The kept observations of an unbalanced layout, and its null data set (empty for a
+    /// balanced one).
+    y: Vec<f64>,
+    null_y: Vec<f64>,
 }
 
 impl Simulator {
@@ -337,36 +387,31 @@ impl Simulator {
         }
         let sigma = plan.priors.get(&REPLICATE).copied().unwrap_or(0.0);
 
-        let tests = analysis
-            .tests
-            .iter()
-            .enumerate()
-            .filter_map(|(t, e)| {
-                let e = e.as_ref()?;
-                if !e.verdict.is_testable() {
-                    return None;
-                }
-                let df1 = analysis.df[t] as f64;
-                let parts: Vec<(usize, f64, f64)> = e
-                    .denominator
-                    .iter()
-                    .map(|(v, w)| (*v, to_f64(w), analysis.df[*v] as f64))
-                    .collect();
-                let critical = (e.verdict == Verdict::Exact)
-                    .then(|| CriticalValue::new(plan.alpha, df1, parts[0].2).value());
-                Some(PlannedTest {
-                    term: t,
-                    df1,
-                    parts,
-                    critical,
-                    own: own[t],
+        let (tests, expected, df, kept) = if layout.is_balanced() {
+            let tests = analysis
+                .tests
+                .iter()
+                .enumerate()
+                .filter_map(|(t, e)| {
+                    let e = e.as_ref()?;
+                    let weights: Vec<(usize, f64)> =
+                        e.denominator.iter().map(|(v, w)| (*v, to_f64(w))).collect();
+                    planned_test(t, e.verdict, &weights, &analysis.df, plan.alpha, own[t])
                 })
-            })
-            .collect();
-        let expected = ems_values(model, &analysis.ems, plan, &layout.levels);
+                .collect();
+            let expected = ems_values(model, &analysis.ems, plan, &layout.levels);
+            (tests, expected, analysis.df.clone(), None)
+        } else {
+            let (kept, tests, expected) =
+                Kept::new(layout, plan, &balanced, &fixed, &fixed_sum, &own)?;
+            let df = kept.analysis.fit.df.clone();
+            (tests, expected, df, Some(kept))
+        };
         Ok(Simulator {
             analysis,
             balanced,
+            kept,
+            df,
             alpha: plan.alpha,
             fixed,
             fixed_sum,
@@ -410,6 +455,8 @@ impl Simulator {
             ss: vec![0.0; terms],
             ms: vec![0.0; terms],
             balanced: self.balanced.scratch(),
+            y: vec![0.0; self.kept.as_ref().map_or(0, |k| k.cell.len())],
+            null_y: vec![0.0; self.kept.as_ref().map_or(0, |k| k.cell.len())],
         }
     }
 
@@ -582,6 +629,9 @@ impl Simulator {
 
     /// One Monte Carlo run, added to a tally.
     pub fn run(&self, seed: u64, run: u64, x: &mut Scratch, tally: &mut Tally) {
+        if let Some(kept) = &self.kept {
+            return self.run_kept(kept, seed, run, x, tally);
+        }
         let mut rng = Simulator::rng(seed, run);
         self.draw(&mut rng, x);
         self.mean_squares(x, false);
@@ -611,17 +661,238 @@ impl Simulator {
         }
     }
 
-    /// The data set of run 0 as observations, cell by cell, with mean `mean`.
+    /// E(D) of a planned test: its denominator's weights times the expected mean squares.
+    fn expected_denominator(&self, test: &PlannedTest) -> f64 {
+        test.parts
+            .iter()
+            .map(|&(v, w, _)| w * self.expected[v])
+            .sum()
+    }
+
+    /// Noncentrality of a fixed term's test for a fixed mean whose sum of squares of the
+    /// term is `ss`: λ = SS_T(μ) / E(D) (μ'Aμ over the denominator's expectation).
+    fn noncentrality(&self, test: &PlannedTest, ss: f64) -> Option<f64> {
+        let den = self.expected_denominator(test);
+        (den > 0.0 && den.is_finite()).then(|| ss.max(0.0) / den)
+    }
+
+    /// Power of a fixed term's test at noncentrality SS_T(μ) / E(D), on the term's df and
+    /// the planned denominator df `df2`; the noncentral F is an approximation unless the
+    /// term's mean square is a scaled noncentral chi-square.
+    fn pattern_power(&self, test: &PlannedTest, df2: Option<f64>, ss: f64) -> Option<f64> {
+        let lambda = self.noncentrality(test, ss)?;
+        let power = CriticalValue::new(self.alpha, test.df1, df2?).fixed_power(lambda);
+        power.is_finite().then_some(power)
+    }
+
+    /// Mean squares SS / df of the kept observations `y` into `ms` (NaN for 0 df).
+    fn kept_mean_squares(&self, kept: &Kept, y: &[f64], ms: &mut [f64]) {
+        let a = &kept.analysis;
+        let ss = a.fit.sums_of_squares(&a.design, y);
+        for ((o, s), &df) in ms.iter_mut().zip(&ss).zip(&self.df) {
+            *o = if df == 0 { f64::NAN } else { s / df as f64 };
+        }
+    }
+
+    /// One Monte Carlo run of a layout with removals: the full layout's data set drawn, the
+    /// kept observations analysed, then each test's null data set (the kept observations
+    /// less the term's own effects).
+    fn run_kept(&self, kept: &Kept, seed: u64, run: u64, x: &mut Scratch, tally: &mut Tally) {
+        let mut rng = Simulator::rng(seed, run);
+        self.draw(&mut rng, x);
+        for ((y, &o), &c) in x.y.iter_mut().zip(&kept.observation).zip(&kept.cell) {
+            *y = x.cell_mean[c] + x.eps[o];
+        }
+        self.kept_mean_squares(kept, &x.y, &mut x.ms);
+        tally.runs += 1;
+        for (t, &ms) in x.ms.iter().enumerate() {
+            let d = ms - self.expected[t];
+            tally.ms_dev[t] += d;
+            tally.ms_dev2[t] += d * d;
+        }
+        for (i, test) in self.tests.iter().enumerate() {
+            let (reject, df2) = self.test(test, &x.ms);
+            tally.alternative[i] += reject as u64;
+            match df2 {
+                Some(df2) => {
+                    tally.df_sum[i] += df2;
+                    tally.df_runs[i] += 1;
+                }
+                None => tally.undefined[i] += 1,
+            }
+        }
+        for (i, test) in self.tests.iter().enumerate() {
+            x.null_y.copy_from_slice(&x.y);
+            match test.own {
+                Own::Nothing => {}
+                Own::Fixed(f) => {
+                    for (y, &c) in x.null_y.iter_mut().zip(&kept.cell) {
+                        *y -= self.fixed[f][c];
+                    }
+                }
+                Own::Random(r) => {
+                    let r = &self.random[r];
+                    let e = &x.effects[r.offset..r.offset + r.size];
+                    let map = if r.finite.is_empty() {
+                        &r.map
+                    } else {
+                        &x.maps[r.map_slot]
+                    };
+                    for (y, &c) in x.null_y.iter_mut().zip(&kept.cell) {
+                        *y -= e[map[c] as usize];
+                    }
+                }
+            }
+            self.kept_mean_squares(kept, &x.null_y, &mut x.ms);
+            let (reject, df2) = self.test(test, &x.ms);
+            tally.null[i] += reject as u64;
+            tally.null_undefined[i] += df2.is_none() as u64;
+        }
+    }
+
+    /// The data set of run 0 as observations, cell by cell, with mean `mean`: every
+    /// observation of a balanced layout, the kept ones (in the design's order) of a layout
+    /// with removals.
     pub fn data_set(&self, seed: u64, mean: f64) -> Vec<f64> {
         let mut x = self.scratch();
         let mut rng = Simulator::rng(seed, 0);
         self.draw(&mut rng, &mut x);
+        if let Some(kept) = &self.kept {
+            return kept
+                .observation
+                .iter()
+                .zip(&kept.cell)
+                .map(|(&o, &c)| mean + x.cell_mean[c] + x.eps[o])
+                .collect();
+        }
         let reps = self.balanced.replicates();
         x.eps
             .chunks_exact(reps)
             .zip(&x.cell_mean)
             .flat_map(|(cell, m)| cell.iter().map(move |e| mean + m + e))
             .collect()
+    }
+}
+
+/// The planned test of term `t` over a denominator of (term, weight) pairs, when it is
+/// testable: an exact test gets its critical F once.
+fn planned_test(
+    t: usize,
+    verdict: Verdict,
+    denominator: &[(usize, f64)],
+    df: &[u64],
+    alpha: f64,
+    own: Own,
+) -> Option<PlannedTest> {
+    if !verdict.is_testable() {
+        return None;
+    }
+    let df1 = df[t] as f64;
+    let parts: Vec<(usize, f64, f64)> = denominator
+        .iter()
+        .map(|&(v, w)| (v, w, df[v] as f64))
+        .collect();
+    let critical =
+        (verdict == Verdict::Exact).then(|| CriticalValue::new(alpha, df1, parts[0].2).value());
+    Some(PlannedTest {
+        term: t,
+        df1,
+        parts,
+        critical,
+        own,
+    })
+}
+
+impl Kept {
+    /// Fits the layout's kept observations, finds each in the full layout, and gives the
+    /// planned tests over the synthesis error terms and the expected mean squares of the
+    /// simulated model: the synthesis coefficients of the random components times the
+    /// priors, plus the exact fixed part SS(μ) / df of the simulated pattern.
+    fn new(
+        layout: &Layout,
+        plan: &PlanningValues,
+        balanced: &Balanced,
+        fixed: &[Vec<f64>],
+        fixed_sum: &[f64],
+        own: &[Own],
+    ) -> Result<(Kept, Vec<PlannedTest>, Vec<f64>), Error> {
+        let analysis = unbalanced::Analysis::new(layout)?;
+        let a = &analysis;
+        let model = &a.design.model;
+        let df = &a.fit.df;
+        let reps = balanced.replicates();
+        let mut at = vec![0usize; balanced.levels().len()];
+        let (observation, cell): (Vec<usize>, Vec<usize>) = a
+            .design
+            .observations()
+            .iter()
+            .map(|o| {
+                for (x, &l) in at.iter_mut().zip(&o.levels) {
+                    *x = l as usize;
+                }
+                let c = balanced.cell(&at);
+                (c * reps + o.replicate as usize, c)
+            })
+            .unzip();
+        let mu: Vec<f64> = cell.iter().map(|&c| fixed_sum[c]).collect();
+        let fixed_ss = a.fit.sums_of_squares(&a.design, &mu);
+
+        let tests: Vec<PlannedTest> = a
+            .tests
+            .iter()
+            .enumerate()
+            .filter_map(|(t, e)| {
+                let e = e.as_ref()?;
+                planned_test(t, e.verdict, &e.denominator, df, plan.alpha, own[t])
+            })
+            .collect();
+        let theta = component_values(model, plan, &layout.levels);
+        let residual = model.residual();
+        let expected = a
+            .ems
+            .rows
+            .iter()
+            .enumerate()
+            .map(|(t, row)| {
+                let random: f64 = row
+                    .iter()
+                    .filter(|(c, _)| *c == residual || model.kinds[*c] == Kind::Random)
+                    .map(|(c, k)| k * theta[*c])
+                    .sum();
+                let fixed = if df[t] > 0 {
+                    fixed_ss[t] / df[t] as f64
+                } else {
+                    0.0
+                };
+                random + fixed
+            })
+            .collect();
+        // What the null data sets of a fixed term still carry of the other fixed terms.
+        let null_fixed_ss = tests
+            .iter()
+            .map(|test| match test.own {
+                Own::Fixed(f) => {
+                    let mu0: Vec<f64> = mu
+                        .iter()
+                        .zip(&cell)
+                        .map(|(m, &c)| m - fixed[f][c])
+                        .collect();
+                    a.fit.sums_of_squares(&a.design, &mu0)[test.term]
+                }
+                _ => fixed_ss[test.term],
+            })
+            .collect();
+        Ok((
+            Kept {
+                analysis,
+                observation,
+                cell,
+                fixed_ss,
+                null_fixed_ss,
+            },
+            tests,
+            expected,
+        ))
     }
 }
 
@@ -753,11 +1024,29 @@ pub struct SimulateReport {
     pub runs: u64,
     pub alpha: f64,
     pub confidence: f64,
+    /// Observations in each data set (after the removals of an unbalanced layout).
     pub observations: u64,
+    /// What was removed and which sums of squares were used; absent for a balanced layout.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub unbalanced: Option<UnbalancedRun>,
     pub terms: Vec<SimulatedTerm>,
     /// The data set written with `--data`, when there is one.
     pub data: Option<DataSummary>,
     pub notes: Vec<String>,
+}
+
+/// The removals of an unbalanced layout, as simulated.
+#[derive(Debug, Clone, Serialize)]
+pub struct UnbalancedRun {
+    /// `sequential` or `type3`.
+    pub sums_of_squares: SumsOfSquares,
+    /// Observations of the full layout, and how many of them the removals take.
+    pub full_observations: u64,
+    pub removed_observations: u64,
+    /// The removals as written: `light=2,chamber=3`.
+    pub removals: Vec<String>,
+    /// Terms in the order they were fitted (the order of the sequential sums of squares).
+    pub fit_order: Vec<String>,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -861,7 +1150,9 @@ pub fn decimals(plan: &PlanningValues) -> usize {
     }
 }
 
-/// Labels the cells' observations: `bench2`, numbered within the nest or globally.
+/// Labels the cells' observations: `bench2`, numbered within the nest or globally. `y` is
+/// what `Simulator::data_set` gives: every observation of a balanced layout, the kept ones
+/// of a layout with removals.
 pub fn data_set(
     layout: &Layout,
     sim: &Simulator,
@@ -877,29 +1168,49 @@ pub fn data_set(
     let mut rows = Vec::with_capacity(y.len());
     let mut written = Vec::with_capacity(y.len());
     let mut at = vec![0usize; lv.len()];
-    let reps = b.replicates();
-    for (c, cell) in y.chunks_exact(reps).enumerate() {
-        b.levels_of_cell(c, &mut at);
-        let labels: Vec<String> = s
-            .factors
+    let labels_of = |at: &[usize]| -> Vec<String> {
+        s.factors
             .iter()
             .enumerate()
             .map(|(j, f)| {
                 let number = if unique_labels {
-                    index_in(lv, f.ancestors, &at) * lv[j] + at[j] + 1
+                    index_in(lv, f.ancestors, at) * lv[j] + at[j] + 1
                 } else {
                     at[j] + 1
                 };
                 format!("{}{number}", f.name)
             })
-            .collect();
-        for v in cell {
-            let text = format!("{v:.decimals$}");
-            // The value as the file holds it, so the report's mean squares are the file's.
-            written.push(text.parse::<f64>().unwrap_or(*v));
-            let mut row = labels.clone();
-            row.push(text);
-            rows.push(row);
+            .collect()
+    };
+    let mut push = |labels: &[String], v: f64| {
+        let text = format!("{v:.decimals$}");
+        // The value as the file holds it, so the report's mean squares are the file's.
+        written.push(text.parse::<f64>().unwrap_or(v));
+        let mut row = labels.to_vec();
+        row.push(text);
+        rows.push(row);
+    };
+    match &sim.kept {
+        None => {
+            for (c, cell) in y.chunks_exact(b.replicates()).enumerate() {
+                b.levels_of_cell(c, &mut at);
+                let labels = labels_of(&at);
+                for &v in cell {
+                    push(&labels, v);
+                }
+            }
+        }
+        Some(kept) => {
+            let mut last = usize::MAX;
+            let mut labels = Vec::new();
+            for (&c, &v) in kept.cell.iter().zip(y) {
+                if c != last {
+                    b.levels_of_cell(c, &mut at);
+                    labels = labels_of(&at);
+                    last = c;
+                }
+                push(&labels, v);
+            }
         }
     }
     DataSet {
@@ -920,8 +1231,65 @@ pub fn simulate(
     let a = &sim.analysis;
     let model = &a.model;
     let s = &layout.structure;
+    let df = &sim.df;
     let labels: Vec<String> = model.terms.iter().map(|t| t.label(s)).collect();
-    let plans = plan_tests(model, &a.ems, &a.df, &a.tests, plan, &layout.levels);
+    // How every term is tested (verdict, denominator weights), and the planned df and
+    // analytic power: the balanced engine's, or the synthesis's with the power of a fixed
+    // term for the simulated pattern.
+    type Tested = Option<(Verdict, Vec<(usize, Coefficient)>)>;
+    // The power `check` gives a fixed term of an unbalanced layout (averaged over patterns).
+    let mut averaged: Vec<Option<f64>> = Vec::new();
+    let (plans, tested): (Vec<Option<TestPlan>>, Vec<Tested>) = match &sim.kept {
+        None => (
+            plan_tests(model, &a.ems, &a.df, &a.tests, plan, &layout.levels),
+            a.tests
+                .iter()
+                .map(|e| {
+                    e.as_ref().map(|e| {
+                        let parts = e
+                            .denominator
+                            .iter()
+                            .map(|&(v, w)| (v, Coefficient::Exact(w)));
+                        (e.verdict, parts.collect())
+                    })
+                })
+                .collect(),
+        ),
+        Some(kept) => {
+            let u = &kept.analysis;
+            let mut plans = unbalanced::denominator::plan_tests(
+                &u.design.model,
+                &u.ems,
+                df,
+                &u.tests,
+                plan,
+                layout,
+            );
+            averaged = plans.iter().map(|p| p.and_then(|p| p.power)).collect();
+            for test in &sim.tests {
+                let t = test.term;
+                let with_effect = matches!(test.own, Own::Fixed(_));
+                if let Some(p) = plans[t].as_mut().filter(|_| with_effect) {
+                    p.noncentrality = sim.noncentrality(test, kept.fixed_ss[t]);
+                    p.power = sim.pattern_power(test, p.denominator_df, kept.fixed_ss[t]);
+                }
+            }
+            let tested = u
+                .tests
+                .iter()
+                .map(|e| {
+                    e.as_ref().map(|e| {
+                        let parts = e
+                            .denominator
+                            .iter()
+                            .map(|&(v, w)| (v, Coefficient::Approximate(w)));
+                        (e.verdict, parts.collect())
+                    })
+                })
+                .collect();
+            (plans, tested)
+        }
+    };
     let tally = (request.runs > 0).then(|| sim.monte_carlo(request.seed, request.runs));
 
     let terms = model
@@ -930,7 +1298,7 @@ pub fn simulate(
         .enumerate()
         .map(|(t, term)| {
             let (mean_ms, mean_ms_se) = match &tally {
-                Some(tl) if a.df[t] > 0 => {
+                Some(tl) if df[t] > 0 => {
                     let n = tl.runs as f64;
                     let dev = tl.ms_dev[t] / n;
                     let se = if tl.runs > 1 {
@@ -946,7 +1314,7 @@ pub fn simulate(
                 (Some(m), Some(se)) => (m - sim.expected[t]).abs() > Z * se + 1e-12 * m.abs(),
                 _ => false,
             };
-            let test = a.tests[t].as_ref().map(|e| {
+            let test = tested[t].as_ref().map(|(verdict, parts)| {
                 let i = sim.tests.iter().position(|p| p.term == t);
                 let planned = plans[t];
                 let analytic_power = planned.and_then(|p| p.power);
@@ -961,13 +1329,12 @@ pub fn simulate(
                     _ => (None, None, None, 0, 0),
                 };
                 SimulatedTest {
-                    verdict: e.verdict,
-                    denominator: e
-                        .denominator
+                    verdict: *verdict,
+                    denominator: parts
                         .iter()
                         .map(|&(v, w)| DenominatorPart {
                             term: labels[v].clone(),
-                            coefficient: crate::check::Coefficient::Exact(w),
+                            coefficient: w,
                         })
                         .collect(),
                     planned_df: planned.and_then(|p| p.denominator_df),
@@ -988,7 +1355,7 @@ pub fn simulate(
                 label: labels[t].clone(),
                 kind: model.kinds[t],
                 residual: term.is_residual(),
-                df: a.df[t],
+                df: df[t],
                 expected_ms: sim.expected[t],
                 mean_ms,
                 mean_ms_se,
@@ -1031,13 +1398,28 @@ pub fn simulate(
             no_effect.join(", ")
         ));
     }
+    if let Some(kept) = &sim.kept {
+        notes.extend(unbalanced_notes(
+            &sim, kept, &labels, &plans, &averaged, layout,
+        ));
+    }
 
     let (data, data_set) = match &request.data {
         None => (None, None),
         Some(d) => {
             let y = sim.data_set(request.seed, d.mean);
             let set = data_set(layout, &sim, &y, decimals(plan), d.unique_labels);
-            let (_, ms, mean) = anova_numbers(sim.balanced(), &set.y);
+            let (ms, mean) = match &sim.kept {
+                None => {
+                    let (_, ms, mean) = anova_numbers(sim.balanced(), &set.y);
+                    (ms, mean)
+                }
+                Some(kept) => {
+                    let mut ms = vec![0.0; df.len()];
+                    sim.kept_mean_squares(kept, &set.y, &mut ms);
+                    (ms, set.y.iter().sum::<f64>() / set.y.len() as f64)
+                }
+            };
             let summary = DataSummary {
                 path: d.path.clone(),
                 observations: set.y.len() as u64,
@@ -1047,8 +1429,8 @@ pub fn simulate(
                 mean_squares: (0..model.terms.len())
                     .map(|t| TermMeanSquare {
                         term: labels[t].clone(),
-                        df: a.df[t],
-                        ms: (a.df[t] > 0).then_some(ms[t]),
+                        df: df[t],
+                        ms: (df[t] > 0).then_some(ms[t]),
                     })
                     .collect(),
             };
@@ -1065,12 +1447,82 @@ pub fn simulate(
             alpha: plan.alpha,
             confidence: CONFIDENCE,
             observations: layout.observations(),
+            unbalanced: sim.kept.as_ref().map(|k| UnbalancedRun {
+                sums_of_squares: layout.sums_of_squares,
+                full_observations: layout.levels.observations(),
+                removed_observations: layout.levels.observations() - layout.observations(),
+                removals: layout.removed.iter().map(|r| r.describe(s)).collect(),
+                fit_order: k
+                    .analysis
+                    .fit
+                    .order
+                    .iter()
+                    .map(|&t| labels[t].clone())
+                    .collect(),
+            }),
             terms,
             data,
             notes,
         },
         data_set,
     ))
+}
+
+/// What the report says of an unbalanced layout's simulation: how the data sets and their
+/// expectations are made, the fixed terms' power for the simulated pattern against the
+/// average `check` gives, and the null data sets that still carry other fixed effects.
+fn unbalanced_notes(
+    sim: &Simulator,
+    kept: &Kept,
+    labels: &[String],
+    plans: &[Option<TestPlan>],
+    averaged: &[Option<f64>],
+    layout: &Layout,
+) -> Vec<String> {
+    let mut notes = vec![
+        "unbalanced layout: each data set is drawn over the full layout and the removed observations are dropped; expected mean squares are Hartley's (1967) synthesis coefficients times the priors, plus the fixed effects' part computed exactly for the simulated effect pattern (μ'Aμ / df)".to_string(),
+        "in an unbalanced layout mean squares are not scaled chi-squares in general, so F and quasi-F ratios, Satterthwaite df and the analytic power (of random terms too) are approximations; the simulated rates show how close they are here".to_string(),
+    ];
+    let mut differs = Vec::new();
+    for test in &sim.tests {
+        let t = test.term;
+        if let (Some(Some(mine)), Some(Some(theirs))) = (
+            plans.get(t).map(|p| p.and_then(|p| p.power)),
+            averaged.get(t),
+        ) && matches!(test.own, Own::Fixed(_))
+            && (mine - theirs).abs() >= 0.0005
+        {
+            differs.push(format!("{} {theirs:.3} (here {mine:.3})", labels[t]));
+        }
+    }
+    if !differs.is_empty() {
+        notes.push(format!(
+            "the analytic power of a fixed term is for the simulated effect pattern (noncentrality SS of the noise-free means / E(denominator)); `emsplan check` averages over effect patterns of the planned size: {}",
+            differs.join(", ")
+        ));
+    }
+    for (test, &ss) in sim.tests.iter().zip(&kept.null_fixed_ss) {
+        let t = test.term;
+        if sim.analysis.model.kinds[t] != Kind::Fixed {
+            continue;
+        }
+        let df2 = plans[t].and_then(|p| p.denominator_df);
+        let Some(rate) = sim.pattern_power(test, df2, ss) else {
+            continue;
+        };
+        if rate - sim.alpha >= 0.0005 {
+            notes.push(format!(
+                "under its null, MS[{}] still carries other fixed terms' effects ({}), so its analytic null rate at the simulated pattern is {rate:.3}, not alpha",
+                labels[t],
+                match layout.sums_of_squares {
+                    SumsOfSquares::Sequential =>
+                        "sequential sums of squares adjust it only for the terms fitted before it",
+                    SumsOfSquares::Type3 => "its type III hypothesis involves them",
+                }
+            ));
+        }
+    }
+    notes
 }
 
 #[cfg(test)]

@@ -438,25 +438,28 @@ fn a_term_left_without_df_is_reported_with_what_it_takes_down() {
     );
 }
 
-/// The jobs that read balanced layouts only (simulate, and the report's Monte Carlo)
-/// refuse a layout with cells removed in one line, rather than treat it as balanced.
+/// The report's Monte Carlo, which reads balanced layouts only, refuses a layout with
+/// cells removed in one line, rather than treat it as balanced.
 #[test]
 fn balanced_only_jobs_refuse_removals() {
     let tanks = problem("unbalanced-tanks.toml");
     let out = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("unbalanced_cli/tanks-runs.html");
-    for args in [
-        vec!["simulate", tanks.as_str()],
-        vec!["report", tanks.as_str(), "--runs", "100", "-o", out.to_str().unwrap()],
-    ] {
-        let (code, stdout, err) = run(&args);
-        assert_eq!(code, 1, "{args:?}: {err}");
-        assert!(stdout.is_empty());
-        assert_eq!(err.matches('\n').count(), 1, "{err}");
-        assert!(
-            err.contains("balanced layouts only") && err.contains(&tanks),
-            "{err}"
-        );
-    }
+    let args = [
+        "report",
+        tanks.as_str(),
+        "--runs",
+        "100",
+        "-o",
+        out.to_str().unwrap(),
+    ];
+    let (code, stdout, err) = run(&args);
+    assert_eq!(code, 1, "{args:?}: {err}");
+    assert!(stdout.is_empty());
+    assert_eq!(err.matches('\n').count(), 1, "{err}");
+    assert!(
+        err.contains("balanced layouts only") && err.contains(&tanks),
+        "{err}"
+    );
 }
 
 /// The report of an unbalanced layout: one convention (the unrestricted model), what was

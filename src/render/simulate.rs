@@ -4,6 +4,7 @@ use super::check::CAUTION;
 use super::{Format, csv_table, json, markdown_table, text_table};
 use crate::check::denominator_words;
 use crate::errorterm::Verdict;
+use crate::layout::SumsOfSquares;
 use crate::render::analyze::sig;
 use crate::simulate::{DataSet, Rate, SimulateReport, SimulatedTerm, SimulatedTest};
 
@@ -187,10 +188,30 @@ fn title(r: &SimulateReport) -> String {
     }
 }
 
+/// What an unbalanced layout's removals took, and which sums of squares were used.
+fn unbalanced_line(r: &SimulateReport) -> Option<String> {
+    let u = r.unbalanced.as_ref()?;
+    let what = match u.sums_of_squares {
+        SumsOfSquares::Sequential => format!(
+            "sequential sums of squares, fitted in the order {}",
+            u.fit_order.join(", ")
+        ),
+        SumsOfSquares::Type3 => "type III sums of squares".to_string(),
+    };
+    Some(format!(
+        "Unbalanced: {} of the full layout's {} observations removed ({}), {} kept in every data set; {what}.",
+        u.removed_observations,
+        u.full_observations,
+        u.removals.join("; "),
+        r.observations
+    ))
+}
+
 /// The paragraphs after the tables, in words.
 fn explanation(r: &SimulateReport) -> Vec<String> {
     let pct = (r.confidence * 100.0).round();
-    let mut out = vec![
+    let mut out: Vec<String> = unbalanced_line(r).into_iter().collect();
+    out.extend([
         format!(
             "Each data set is drawn from the layout's model at the planning values ({} convention). Rates are the share of data sets in which the planned test rejected at alpha = {}, with {pct}% Wilson score intervals; a flag means the value they are held against (alpha under the null, the analytic power at the planning values) lies outside the interval. A flagged mean square lies more than the {pct}% normal quantile of standard errors from its expected value.",
             r.convention.name(),
@@ -198,7 +219,7 @@ fn explanation(r: &SimulateReport) -> Vec<String> {
         ),
         "Under the null the term's own component is set to zero and everything else is kept."
             .into(),
-    ];
+    ]);
     if r.terms
         .iter()
         .any(|t| tested(t).is_some_and(|x| x.verdict == Verdict::Synthetic))
