@@ -218,20 +218,6 @@ pub fn main() -> ExitCode {
     }
 }
 
-/// Jobs that read balanced layouts only refuse one with cells removed, saying what does
-/// handle it.
-fn balanced_only(layout: &Layout, path: &std::path::Path, job: &str) -> Result<(), Error> {
-    if layout.is_balanced() {
-        return Ok(());
-    }
-    Err(Error::Invalid {
-        file: Some(path.display().to_string()),
-        line: layout.removed.first().and_then(|r| r.line),
-        message: format!(
-            "emsplan {job} handles balanced layouts only so far, and this one has cells removed ([[layout.remove]]): `emsplan check` and `emsplan compare` handle it; for {job}, use the layout without its removals"
-        ),
-    })
-}
 
 /// Runs a parsed command and returns what goes to stdout.
 pub fn run(cli: Cli) -> Result<String, Error> {
@@ -446,7 +432,6 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 report.sections.push(render::report::search_section(&found));
             }
             if let Some(runs) = runs {
-                balanced_only(&side.layout, &layout, "report --runs")?;
                 if runs == 0 || runs > crate::simulate::MAX_RUNS {
                     return Err(Error::Usage(format!(
                         "--runs {runs}: ask for between 1 and {} data sets",
