@@ -218,7 +218,6 @@ pub fn main() -> ExitCode {
     }
 }
 
-
 /// Runs a parsed command and returns what goes to stdout.
 pub fn run(cli: Cli) -> Result<String, Error> {
     match cli.command {
@@ -313,7 +312,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 power: None,
             };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
-            
+
             let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
             Ok(render::analyze::render(&report, format))

@@ -82,12 +82,23 @@ fn holds(report: &AnalyzeReport, case: &Value) {
     let ems = &case["ems"];
     assert_eq!(report.observations, case["observations"].as_u64().unwrap());
     assert!(report.imbalance.is_some(), "reported as unbalanced");
-    let ms = |label: &str| terms[label]["ss"].as_f64().unwrap() / terms[label]["df"].as_f64().unwrap();
+    let ms =
+        |label: &str| terms[label]["ss"].as_f64().unwrap() / terms[label]["df"].as_f64().unwrap();
     for row in &report.terms {
         let r = &terms[&row.label];
         assert!(r.is_object(), "the reference has {}", row.label);
-        assert_eq!(row.df as f64, r["df"].as_f64().unwrap(), "df of {}", row.label);
-        close(row.ss, r["ss"].as_f64().unwrap(), 1e-8, &format!("SS of {}", row.label));
+        assert_eq!(
+            row.df as f64,
+            r["df"].as_f64().unwrap(),
+            "df of {}",
+            row.label
+        );
+        close(
+            row.ss,
+            r["ss"].as_f64().unwrap(),
+            1e-8,
+            &format!("SS of {}", row.label),
+        );
         let Some(test) = &row.test else { continue };
         if !test.verdict.is_testable() {
             continue;
@@ -116,19 +127,39 @@ fn holds(report: &AnalyzeReport, case: &Value) {
             .iter()
             .map(|p| p.coefficient.value() * ms(&p.term))
             .sum();
-        close(test.f.unwrap(), ms(&row.label) / d, 1e-8, &format!("F of {}", row.label));
-        let over_residual = test.verdict == Verdict::Exact && test.denominator[0].term == "residual";
+        close(
+            test.f.unwrap(),
+            ms(&row.label) / d,
+            1e-8,
+            &format!("F of {}", row.label),
+        );
+        let over_residual =
+            test.verdict == Verdict::Exact && test.denominator[0].term == "residual";
         if over_residual {
             let p = case["over_residual"][&row.label]["p"].as_f64().unwrap();
             let ours = test.p.unwrap();
-            assert!((ours - p).abs() <= 1e-9 + 1e-7 * p, "p of {}: {ours} vs scipy {p}", row.label);
+            assert!(
+                (ours - p).abs() <= 1e-9 + 1e-7 * p,
+                "p of {}: {ours} vs scipy {p}",
+                row.label
+            );
         }
     }
     for c in &report.components {
         let want = case["components"][&c.term].as_f64().unwrap();
-        close(c.estimate.unwrap(), want, 1e-8, &format!("component of {}", c.term));
+        close(
+            c.estimate.unwrap(),
+            want,
+            1e-8,
+            &format!("component of {}", c.term),
+        );
     }
-    close(report.grand_mean, case["grand_mean"].as_f64().unwrap(), 1e-12, "grand mean");
+    close(
+        report.grand_mean,
+        case["grand_mean"].as_f64().unwrap(),
+        1e-12,
+        "grand mean",
+    );
 }
 
 #[test]
@@ -140,16 +171,34 @@ fn lost_chamber_pot_and_cell_sequential() {
     holds(&report, case);
     let i = report.imbalance.as_ref().unwrap();
     // 108 planned: a chamber (12 pots), a cell (3 pots) and a pot lost.
-    assert_eq!((i.full_observations, i.empty_cells, i.lost_observations), (108, 5, 1));
+    assert_eq!(
+        (i.full_observations, i.empty_cells, i.lost_observations),
+        (108, 5, 1)
+    );
     assert_eq!(report.observations, 92);
     // The layout says restricted; unbalanced data are analysed under the unrestricted model.
-    assert!(report.notes.iter().any(|n| n.contains("unrestricted model")));
-    assert!(report.notes.iter().any(|n| n.contains("chamber = level 3") || n.contains("chamber = chamber3")));
+    assert!(
+        report
+            .notes
+            .iter()
+            .any(|n| n.contains("unrestricted model"))
+    );
+    assert!(
+        report
+            .notes
+            .iter()
+            .any(|n| n.contains("chamber = level 3") || n.contains("chamber = chamber3"))
+    );
     // Raw means against pandas' groupby.
     for table in report.means.iter().filter(|m| m.factors.len() == 1) {
         let want = &case["means"][&table.term];
         for row in &table.rows {
-            close(row.mean, want[&row.levels[0]].as_f64().unwrap(), 1e-12, &table.term);
+            close(
+                row.mean,
+                want[&row.levels[0]].as_f64().unwrap(),
+                1e-12,
+                &table.term,
+            );
         }
         assert_eq!(table.per_mean, None, "unequal counts");
     }
@@ -159,7 +208,10 @@ fn lost_chamber_pot_and_cell_sequential() {
 fn coating_three_panels_lost_type_three() {
     let reference = reference();
     let case = &reference["coating"];
-    let report = run(&layout_from_text(COATING_TYPE3), case["data"].as_str().unwrap());
+    let report = run(
+        &layout_from_text(COATING_TYPE3),
+        case["data"].as_str().unwrap(),
+    );
     holds(&report, case);
     assert_eq!(report.imbalance.as_ref().unwrap().lost_observations, 3);
 }
@@ -182,7 +234,8 @@ fn batches_with_a_lost_sample_sequential() {
 #[test]
 fn missing_values_are_left_out() {
     let layout = layout_from_file("problems/growth-chambers.toml");
-    let good = std::fs::read_to_string(root().join("tests/fixtures/data/chambers-nested.csv")).unwrap();
+    let good =
+        std::fs::read_to_string(root().join("tests/fixtures/data/chambers-nested.csv")).unwrap();
     let with_na = format!("{good}light1,chamber1,cultivar1,NA\nlight2,chamber2,cultivar3,\n");
     let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR"));
     let path = dir.join("chambers-with-na.csv");
@@ -194,7 +247,11 @@ fn missing_values_are_left_out() {
     for (a, b) in report.terms.iter().zip(&plain.terms) {
         assert_eq!(a.ss, b.ss);
     }
-    assert!(report.notes[0].contains("2 rows have no response value and are left out (lines 110, 111)"), "{:?}", report.notes);
+    assert!(
+        report.notes[0].contains("2 rows have no response value and are left out (lines 110, 111)"),
+        "{:?}",
+        report.notes
+    );
 }
 
 /// The binary on the shipped example data of an unbalanced layout.
@@ -210,8 +267,15 @@ fn the_binary_analyses_the_shipped_unbalanced_data() {
         .output()
         .unwrap();
     let text = String::from_utf8_lossy(&out.stdout);
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
-    assert!(text.contains("Unbalanced data: 94 of the layout's 108 observations"), "{text}");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(
+        text.contains("Unbalanced data: 94 of the layout's 108 observations"),
+        "{text}"
+    );
     assert!(text.contains("(quasi)"), "synthetic tests: {text}");
 }
 
@@ -219,7 +283,8 @@ fn the_binary_analyses_the_shipped_unbalanced_data() {
 #[test]
 fn an_unobserved_fixed_level_is_refused() {
     let layout = layout_from_file("problems/growth-chambers.toml");
-    let good = std::fs::read_to_string(root().join("tests/fixtures/data/chambers-nested.csv")).unwrap();
+    let good =
+        std::fs::read_to_string(root().join("tests/fixtures/data/chambers-nested.csv")).unwrap();
     let without: String = good
         .lines()
         .filter(|l| !l.contains("cultivar4"))

@@ -480,8 +480,14 @@ fn the_report_of_an_unbalanced_layout() {
         let (code, _, err) = run(&args);
         assert_eq!(code, 0, "{err}");
         let text = std::fs::read_to_string(&out).unwrap();
-        assert!(text.contains("only the unrestricted model is defined"), "{file}");
-        assert!(text.contains("13 of the full layout's 108 observations removed"), "{file}");
+        assert!(
+            text.contains("only the unrestricted model is defined"),
+            "{file}"
+        );
+        assert!(
+            text.contains("13 of the full layout's 108 observations removed"),
+            "{file}"
+        );
         assert!(text.contains("leaving 95"), "{file}");
         // light's sequential mean square carries κ²(cultivar), which its error term
         // does not reproduce; the report says so rather than claim it does.

@@ -349,7 +349,10 @@ pub fn parse_data(
                 while at < bytes.len() && matches!(bytes[at], b'\r' | b'\n') {
                     at += 1;
                 }
-                counted_line += bytes[counted_to..at].iter().filter(|&&b| b == b'\n').count();
+                counted_line += bytes[counted_to..at]
+                    .iter()
+                    .filter(|&&b| b == b'\n')
+                    .count();
                 counted_to = at;
                 counted_line
             }
@@ -556,7 +559,12 @@ fn nest_text_at(layout: &Layout, labels: &[Vec<Vec<String>>], j: usize, at: &[us
 }
 
 /// `light = light1, chamber = chamber2` for the factors of `mask` at level indices `at`.
-pub(crate) fn describe(layout: &Layout, labels: &[Vec<Vec<String>>], mask: Mask, at: &[usize]) -> String {
+pub(crate) fn describe(
+    layout: &Layout,
+    labels: &[Vec<Vec<String>>],
+    mask: Mask,
+    at: &[usize],
+) -> String {
     let s = &layout.structure;
     let levels: Vec<usize> = layout
         .levels
@@ -672,10 +680,7 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
                     e.verdict,
                     denominator,
                     &parts,
-                    Numbers {
-                        ms: &ms,
-                        df: &a.df,
-                    },
+                    Numbers { ms: &ms, df: &a.df },
                     t,
                     &labels[t],
                     &mut notes,
@@ -730,8 +735,16 @@ pub(crate) fn data_notes(data: &Observations) -> Vec<String> {
     vec![format!(
         "{} no response value and {} left out (line{} {})",
         plural(data.missing_lines.len(), "row has", "rows have"),
-        if data.missing_lines.len() == 1 { "is" } else { "are" },
-        if data.missing_lines.len() == 1 { "" } else { "s" },
+        if data.missing_lines.len() == 1 {
+            "is"
+        } else {
+            "are"
+        },
+        if data.missing_lines.len() == 1 {
+            ""
+        } else {
+            "s"
+        },
         lines.join(", ")
     )]
 }

@@ -24,7 +24,7 @@ use nalgebra::{DMatrix, DVector};
 
 use super::{
     AnalyzeReport, AnovaRow, Imbalance, MeanRow, MeansTable, Numbers, Observations,
-    component_estimates, describe, plural, planned_test,
+    component_estimates, describe, planned_test, plural,
 };
 use crate::balanced::{Balanced, index_in};
 use crate::check::{Coefficient, DenominatorPart};
@@ -315,7 +315,12 @@ fn moment_estimates(model: &Model, ems: &SynthesisEms, df: &[u64], ms: &[f64]) -
 }
 
 /// Raw means of every fixed term's cells that hold observations, with their counts.
-fn raw_means(layout: &Layout, model: &Model, data: &Observations, shape: &Balanced) -> Vec<MeansTable> {
+fn raw_means(
+    layout: &Layout,
+    model: &Model,
+    data: &Observations,
+    shape: &Balanced,
+) -> Vec<MeansTable> {
     let s = &layout.structure;
     let levels = shape.levels();
     let offsets = data.offsets();

@@ -284,7 +284,10 @@ pub fn render(r: &AnalyzeReport, format: Format) -> String {
 fn means_heading(m: &MeansTable) -> String {
     match m.per_mean {
         Some(n) => format!("{} ({n} observations per mean)", m.term),
-        None => format!("{} (raw means of the observations present; n is each one's count)", m.term),
+        None => format!(
+            "{} (raw means of the observations present; n is each one's count)",
+            m.term
+        ),
     }
 }
 
@@ -316,10 +319,7 @@ fn imbalance_text(r: &AnalyzeReport) -> Option<String> {
     let i = r.imbalance.as_ref()?;
     let mut missing = Vec::new();
     if i.empty_cells > 0 {
-        missing.push(format!(
-            "{} empty",
-            count(i.empty_cells, "cell", "cells")
-        ));
+        missing.push(format!("{} empty", count(i.empty_cells, "cell", "cells")));
     }
     if i.lost_observations > 0 {
         missing.push(format!(
@@ -332,7 +332,9 @@ fn imbalance_text(r: &AnalyzeReport) -> Option<String> {
             "sequential (type I) sums of squares, terms fitted in the order {}",
             i.fit_order.join(", ")
         ),
-        SumsOfSquares::Type3 => "type III sums of squares (each term adjusted for every other)".into(),
+        SumsOfSquares::Type3 => {
+            "type III sums of squares (each term adjusted for every other)".into()
+        }
     };
     Some(format!(
         "Unbalanced data: {} of the layout's {} observations ({}). Analysed with {sums}; expected mean squares by Hartley's (1967) synthesis under the unrestricted model, error terms from them.",

@@ -280,11 +280,7 @@ fn describe(layout: &Layout) -> Vec<String> {
             layout.observations()
         ));
     } else {
-        let removals: Vec<String> = layout
-            .removed
-            .iter()
-            .map(|r| r.describe(s))
-            .collect();
+        let removals: Vec<String> = layout.removed.iter().map(|r| r.describe(s)).collect();
         out.push(format!(
             "Each cell of the full layout holds {each} ({} in all); the layout removes {}, leaving {}.",
             layout.levels.observations(),

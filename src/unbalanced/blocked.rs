@@ -101,7 +101,10 @@ mod tests {
             let a = spd(n);
             let ours = cholesky(a.clone()).expect("positive definite");
             let theirs = a.clone().cholesky().expect("positive definite").l();
-            assert!((&ours - &theirs).amax() < 1e-9 * a.amax(), "cholesky, n = {n}");
+            assert!(
+                (&ours - &theirs).amax() < 1e-9 * a.amax(),
+                "cholesky, n = {n}"
+            );
 
             let b = DMatrix::from_fn(n, 3, |i, j| (i + 2 * j) as f64 - 4.0);
             let mut x = b.clone();

@@ -40,7 +40,12 @@ pub fn outcome(layout: &Layout, plan: &PlanningValues, live: Mask) -> Option<Out
 
 /// `outcome` for a layout already fitted (`a` is `Analysis::new(layout)`), so that many
 /// planning values can be tried on one synthesis.
-pub fn outcome_of(a: &Analysis, layout: &Layout, plan: &PlanningValues, live: Mask) -> Option<Outcome> {
+pub fn outcome_of(
+    a: &Analysis,
+    layout: &Layout,
+    plan: &PlanningValues,
+    live: Mask,
+) -> Option<Outcome> {
     let t = a.design.model.terms.iter().position(|u| u.live == live)?;
     let e = a.tests[t].as_ref()?;
     let plans = plan_tests(&a.design.model, &a.ems, &a.fit.df, &a.tests, plan, layout);
