@@ -439,9 +439,12 @@ fn explain(layout: &Layout, a: &Analysis, t: usize, e: &ErrorTerm) -> Option<Str
         Verdict::Exact => None,
         Verdict::NotEstimable => {
             let ones = one_level_factors(layout, model.terms[t].live);
+            let still = match model.kinds[t] {
+                Kind::Fixed => "its effects are still in the model",
+                Kind::Random => "its variance is still in the model",
+            };
             Some(format!(
-                "it has 0 df ({} one level in each nest), so it has no mean square of its own; its variance is still in the model",
-                ones
+                "it has 0 df ({ones} one level in each nest), so it has no mean square of its own; {still}"
             ))
         }
         Verdict::Synthetic => {

@@ -542,3 +542,79 @@ fn type3_frees_fixed_terms_of_each_other() {
         }
     }
 }
+
+/// An empty cell (one chamber's whole cultivar lost) takes df from the type III
+/// hypotheses that involve it: a type III hypothesis on the full cell means is estimable
+/// only where it avoids the empty cells (common practice for type III with empty cells;
+/// e.g. Searle 1987, Linear Models for Unbalanced Data, from memory). Sequential sums of
+/// squares keep every df, and the check says which sums of squares would.
+#[test]
+fn type3_with_an_empty_cell_loses_df_and_says_so() {
+    let text = format!(
+        "{}\n",
+        EMPTY_CELL.replace("[layout]\n", "[layout]\nsums_of_squares = \"type3\"\n")
+    );
+    let l3 = layout(&text);
+    let l1 = layout(EMPTY_CELL);
+    let a3 = Analysis::new(&l3).unwrap();
+    let a1 = Analysis::new(&l1).unwrap();
+    // Sequential: light 1 df (2 levels), cultivar 2, light x cultivar 2.
+    assert_eq!(
+        ["light", "cultivar", "light x cultivar"].map(|t| df(&a1, &l1, t)),
+        [1, 2, 2]
+    );
+    assert_eq!(a3.fit.sequential_df, a1.fit.df);
+    let light = df(&a3, &l3, "light");
+    let cultivar = df(&a3, &l3, "cultivar");
+    assert!(
+        light < 1 && cultivar < 2,
+        "type III loses df: light {light}, cultivar {cultivar}"
+    );
+    let spec = emsplan::spec::parse(&text).unwrap();
+    let plan = PlanningValues::from_spec(&spec, &text, &l3).unwrap();
+    let report = emsplan::check::check(&l3, Convention::Unrestricted, &plan).unwrap();
+    let all = report.findings.join("\n");
+    assert!(
+        all.contains("the removals leave light with no df (it had 1)")
+            && all.contains(
+                "sequential sums of squares (sums_of_squares = \"sequential\") give it 1 df"
+            ),
+        "{all}"
+    );
+    assert!(
+        all.contains("with type III sums of squares cultivar keeps 1 of its 2 df"),
+        "{all}"
+    );
+}
+
+/// Light (fixed, 2) with chambers (random, 3 per light), cultivars (fixed, 3), 2 pots: a
+/// chamber lost, a pot lost, and one chamber's whole third cultivar lost.
+const EMPTY_CELL: &str = r#"
+[layout]
+replicates = 2
+[[layout.remove]]
+light = 2
+chamber = 3
+[[layout.remove]]
+light = 1
+chamber = 1
+cultivar = 2
+replicate = 2
+[[layout.remove]]
+light = 1
+chamber = 2
+cultivar = 3
+[[factor]]
+name = "light"
+kind = "fixed"
+levels = 2
+[[factor]]
+name = "chamber"
+kind = "random"
+levels = 3
+within = ["light"]
+[[factor]]
+name = "cultivar"
+kind = "fixed"
+levels = 3
+"#;

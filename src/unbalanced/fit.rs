@@ -64,6 +64,9 @@ pub struct Fit {
     pub order: Vec<usize>,
     /// df of every model term, the residual last.
     pub df: Vec<u64>,
+    /// The df the same terms have as sequential sums of squares (equal to `df` for a
+    /// sequential fit; type III can leave a term fewer when a cell is empty).
+    pub sequential_df: Vec<u64>,
     /// The intercept's direction, √n_c / √N.
     intercept: DMatrix<f64>,
     /// Sequential blocks, by term (they span the model's column space with the intercept).
@@ -468,6 +471,7 @@ impl Fit {
         let full = rank == m;
         df[residual] = (n_obs as u64).saturating_sub(rank as u64);
 
+        let sequential_df = df.clone();
         let reported = match sums_of_squares {
             SumsOfSquares::Sequential => sequential.clone(),
             SumsOfSquares::Type3 => {
@@ -488,6 +492,7 @@ impl Fit {
             sums_of_squares,
             order,
             df,
+            sequential_df,
             intercept,
             sequential,
             reported,

@@ -104,13 +104,23 @@ fn explain(a: &Analysis, layout: &Layout, t: usize) -> Option<String> {
         Verdict::Exact => None,
         Verdict::NotEstimable => {
             let before = model.terms[t].df(&layout.levels);
-            Some(if before > 0 {
+            let still = match model.kinds[t] {
+                Kind::Fixed => "its effects are still in the model",
+                Kind::Random => "its variance is still in the model",
+            };
+            let why = if before == 0 {
+                "it had none in the full layout either".to_string()
+            } else if a.fit.sums_of_squares == SumsOfSquares::Type3 && a.fit.sequential_df[t] > 0 {
                 format!(
-                    "the removals leave it 0 df (it had {before} in the full layout), so it has no mean square of its own; its variance is still in the model"
+                    "it had {before} in the full layout; type III leaves it none, sequential sums of squares {}",
+                    a.fit.sequential_df[t]
                 )
             } else {
-                "it has 0 df (it had none in the full layout either), so it has no mean square of its own; its variance is still in the model".to_string()
-            })
+                format!("it had {before} in the full layout")
+            };
+            Some(format!(
+                "the layout leaves it 0 df ({why}), so it has no mean square of its own; {still}"
+            ))
         }
         Verdict::Synthetic => {
             let parts: Vec<(String, Coefficient)> = e
@@ -280,10 +290,18 @@ fn notes_and_warnings(a: &Analysis, layout: &Layout) -> (Vec<String>, Vec<String
         } else {
             t.df(levels)
         };
+        let label = t.label(s);
+        let sequential = a.fit.sequential_df[i];
+        let type3_short = a.fit.sums_of_squares == SumsOfSquares::Type3 && sequential > a.fit.df[i];
         if a.fit.df[i] > 0 || before == 0 {
+            if type3_short {
+                warnings.push(format!(
+                    "with type III sums of squares {label} keeps {} of its {sequential} df: part of its type III hypothesis concerns cells with no observation (an empty cell), so that part cannot be tested; sequential sums of squares (sums_of_squares = \"sequential\") give it {sequential}",
+                    a.fit.df[i]
+                ));
+            }
             continue;
         }
-        let label = t.label(s);
         let lost: Vec<String> = a
             .tests
             .iter()
@@ -311,7 +329,13 @@ fn notes_and_warnings(a: &Analysis, layout: &Layout) -> (Vec<String>, Vec<String
                 if lost.len() == 1 { "" } else { "s" }
             ));
         }
-        w.push_str("; keep more of those units, or remove fewer");
+        if type3_short {
+            w.push_str(&format!(
+                "; with type III sums of squares its hypothesis concerns cells with no observation (an empty cell), while sequential sums of squares (sums_of_squares = \"sequential\") give it {sequential} df"
+            ));
+        } else {
+            w.push_str("; keep more of those units, or remove fewer");
+        }
         warnings.push(w);
     }
     (notes, warnings)
