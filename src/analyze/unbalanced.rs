@@ -24,7 +24,7 @@ use nalgebra::{DMatrix, DVector};
 
 use super::{
     AnalyzeReport, AnovaRow, Imbalance, MeanRow, MeansTable, Numbers, Observations,
-    component_estimates, describe, planned_test, plural,
+    component_estimates, describe, planned_test,
 };
 use crate::balanced::{Balanced, index_in};
 use crate::check::{Coefficient, DenominatorPart};
@@ -220,44 +220,44 @@ fn data_layout(layout: &Layout, data: &Observations, shape: &Balanced) -> Result
         .map_err(|(_, m)| fail(format!("the data are unbalanced, and {m}")))
 }
 
-/// Notes on the units the data have no observation of: a level of a factor, within a
-/// nest that has observations (a lost chamber, a missing bench).
+/// Notes on the units the data have no observation of: a factor with fewer levels
+/// observed than the layout declares, within a nest that has observations (a lost chamber,
+/// a missing bench). Labels exist only for levels observed, so the missing ones are
+/// counted, not named.
 fn lost_units(layout: &Layout, data: &Observations, shape: &Balanced) -> Vec<String> {
     const SHOWN: usize = 8;
     let s = &layout.structure;
     let levels = shape.levels();
     let mut lost = Vec::new();
-    let mut at = vec![0usize; levels.len()];
     for (f, factor) in s.factors.iter().enumerate() {
-        let keep = factor.ancestors | (1 << f);
-        let size: usize = (0..levels.len())
-            .filter(|&g| keep & (1 << g) != 0)
-            .map(|g| levels[g])
-            .product();
-        let mut n = vec![0usize; size];
-        for (c, &count) in data.counts.iter().enumerate() {
-            shape.levels_of_cell(c, &mut at);
-            n[index_in(levels, keep, &at)] += count;
-        }
-        // Every level with no observation, where its nest has some.
-        let mut seen = vec![false; size];
-        for c in 0..shape.cells() {
-            shape.levels_of_cell(c, &mut at);
-            let i = index_in(levels, keep, &at);
-            if seen[i] || n[i] > 0 {
+        for (nest, present) in data.labels[f].iter().enumerate() {
+            if present.is_empty() || present.len() >= levels[f] {
                 continue;
             }
-            seen[i] = true;
-            let nest_total: usize = (0..levels[f])
-                .map(|l| {
-                    let mut b = at.clone();
-                    b[f] = l;
-                    n[index_in(levels, keep, &b)]
-                })
-                .sum();
-            if nest_total > 0 {
-                lost.push(describe(layout, &data.labels, keep, &at));
+            // The nest's level of every ancestor, from its index (last ancestor fastest).
+            let mut at = vec![0usize; levels.len()];
+            let mut rest = nest;
+            for g in (0..levels.len()).rev() {
+                if factor.ancestors & (1 << g) != 0 {
+                    at[g] = rest % levels[g];
+                    rest /= levels[g];
+                }
             }
+            let within = if factor.ancestors == 0 {
+                String::new()
+            } else {
+                format!(
+                    " within {}",
+                    describe(layout, &data.labels, factor.ancestors, &at)
+                )
+            };
+            lost.push(format!(
+                "{}{within}: {} of its {} levels observed ({})",
+                factor.name,
+                present.len(),
+                levels[f],
+                present.join(", ")
+            ));
         }
     }
     if lost.is_empty() {
@@ -265,9 +265,9 @@ fn lost_units(layout: &Layout, data: &Observations, shape: &Balanced) -> Vec<Str
     }
     let more = lost.len().saturating_sub(SHOWN);
     lost.truncate(SHOWN);
-    let mut text = format!("no observation at all of: {}", lost.join("; "));
+    let mut text = format!("units with no observation at all: {}", lost.join("; "));
     if more > 0 {
-        text.push_str(&format!("; and {} more", plural(more, "unit", "units")));
+        text.push_str(&format!("; and {more} more"));
     }
     vec![text]
 }
