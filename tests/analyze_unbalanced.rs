@@ -300,3 +300,25 @@ fn an_unobserved_fixed_level_is_refused() {
     );
     assert!(err.contains("give cultivar one level fewer"), "{err}");
 }
+
+/// Unbalanced data of a layout with a finite population: refused in one line that says
+/// what to change (the synthesis assumes random factors drawn from large populations).
+#[test]
+fn unbalanced_data_with_a_finite_population_are_refused() {
+    let text = std::fs::read_to_string(root().join("problems/growth-chambers.toml"))
+        .unwrap()
+        .replace(
+            "within = [\"light\"]",
+            "within = [\"light\"]\npopulation = 12",
+        );
+    let layout = layout_from_text(&text);
+    let data = std::fs::read(root().join("tests/fixtures/data/chambers-lost.csv")).unwrap();
+    let obs = emsplan::analyze::parse_data("lost.csv", &data, &layout, None).expect("reads");
+    let err = analyze(&layout, &obs, 0.05).unwrap_err().to_string();
+    assert!(
+        err.starts_with("lost.csv: the data are unbalanced"),
+        "{err}"
+    );
+    assert!(err.contains("remove `population`"), "{err}");
+    assert_eq!(err.lines().count(), 1);
+}

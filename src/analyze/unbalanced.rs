@@ -178,6 +178,12 @@ fn data_layout(layout: &Layout, data: &Observations, shape: &Balanced) -> Result
         line: None,
         message,
     };
+    if let Some(f) = s.factors.iter().find(|f| f.population.is_some()) {
+        return Err(fail(format!(
+            "the data are unbalanced (some cells hold fewer than {r} observations), and the factor \"{}\" has a finite population, which emsplan's unbalanced engine does not model (it assumes random factors drawn from large populations): remove `population` from the layout to analyse these data",
+            f.name
+        )));
+    }
     let counts: Vec<u64> = data.counts.iter().map(|&n| n as u64).collect();
     if let Some((f, key)) = removal::unobserved_fixed_level(layout, &counts) {
         let at: Vec<usize> = key
