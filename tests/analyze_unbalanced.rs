@@ -295,10 +295,13 @@ fn an_unobserved_fixed_level_is_refused() {
         .expect("reads");
     let err = analyze(&layout, &obs, 0.05).unwrap_err().to_string();
     assert!(
-        err.starts_with("no-cultivar4.csv: the data hold no observation at cultivar = level 4"),
+        err.starts_with("no-cultivar4.csv: the data hold observations of only 3 of the 4 levels of the fixed factor \"cultivar\" (cultivar1, cultivar2, cultivar3)"),
         "{err}"
     );
-    assert!(err.contains("give cultivar one level fewer"), "{err}");
+    assert!(
+        err.contains("give cultivar 3 levels in the layout"),
+        "{err}"
+    );
 }
 
 /// Unbalanced data of a layout with a finite population: refused in one line that says

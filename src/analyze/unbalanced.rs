@@ -191,10 +191,31 @@ fn data_layout(layout: &Layout, data: &Observations, shape: &Balanced) -> Result
             .map(|&l| if l == u64::MAX { 0 } else { l as usize })
             .collect();
         let factor = &s.factors[f];
+        let levels: Vec<usize> = layout
+            .levels
+            .per_factor
+            .iter()
+            .map(|&n| n as usize)
+            .collect();
+        let nest = index_in(&levels, factor.ancestors, &at);
+        // Labels exist only for the levels observed, so the missing one is counted.
+        let present = data.labels[f].get(nest).cloned().unwrap_or_default();
+        let within = if factor.ancestors == 0 {
+            String::new()
+        } else {
+            format!(
+                " within {}",
+                describe(layout, &data.labels, factor.ancestors, &at)
+            )
+        };
         return Err(fail(format!(
-            "the data hold no observation at {}: a fixed level that is never observed cannot be compared with the others; give {} one level fewer in the layout (and label the levels present), or add its rows",
-            describe(layout, &data.labels, factor.ancestors | (1 << f), &at),
-            factor.name
+            "the data hold observations of only {} of the {} levels of the fixed factor \"{}\"{within} ({}): a fixed level that is never observed cannot be compared with the others; give {} {} levels in the layout, or add the missing level's rows",
+            present.len(),
+            levels[f],
+            factor.name,
+            present.join(", "),
+            factor.name,
+            present.len()
         )));
     }
     let mut removed = Vec::new();
