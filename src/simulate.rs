@@ -627,22 +627,17 @@ impl Simulator {
         total
     }
 
-    /// One Monte Carlo run, added to a tally.
-    pub fn run(&self, seed: u64, run: u64, x: &mut Scratch, tally: &mut Tally) {
-        if let Some(kept) = &self.kept {
-            return self.run_kept(kept, seed, run, x, tally);
-        }
-        let mut rng = Simulator::rng(seed, run);
-        self.draw(&mut rng, x);
-        self.mean_squares(x, false);
+    /// Adds a data set at the planning values to a tally: every term's mean square (in
+    /// `ms`) against its expectation, and every planned test's outcome.
+    fn tally_planned(&self, ms: &[f64], tally: &mut Tally) {
         tally.runs += 1;
-        for (t, &ms) in x.ms.iter().enumerate() {
-            let d = ms - self.expected[t];
+        for (t, &m) in ms.iter().enumerate() {
+            let d = m - self.expected[t];
             tally.ms_dev[t] += d;
             tally.ms_dev2[t] += d * d;
         }
         for (i, test) in self.tests.iter().enumerate() {
-            let (reject, df2) = self.test(test, &x.ms);
+            let (reject, df2) = self.test(test, ms);
             tally.alternative[i] += reject as u64;
             match df2 {
                 Some(df2) => {
@@ -652,6 +647,17 @@ impl Simulator {
                 None => tally.undefined[i] += 1,
             }
         }
+    }
+
+    /// One Monte Carlo run, added to a tally.
+    pub fn run(&self, seed: u64, run: u64, x: &mut Scratch, tally: &mut Tally) {
+        if let Some(kept) = &self.kept {
+            return self.run_kept(kept, seed, run, x, tally);
+        }
+        let mut rng = Simulator::rng(seed, run);
+        self.draw(&mut rng, x);
+        self.mean_squares(x, false);
+        self.tally_planned(&x.ms, tally);
         for (i, test) in self.tests.iter().enumerate() {
             self.null_totals(test.own, x);
             self.mean_squares(x, true);
@@ -704,23 +710,7 @@ impl Simulator {
             *y = x.cell_mean[c] + x.eps[o];
         }
         self.kept_mean_squares(kept, &x.y, &mut x.ms);
-        tally.runs += 1;
-        for (t, &ms) in x.ms.iter().enumerate() {
-            let d = ms - self.expected[t];
-            tally.ms_dev[t] += d;
-            tally.ms_dev2[t] += d * d;
-        }
-        for (i, test) in self.tests.iter().enumerate() {
-            let (reject, df2) = self.test(test, &x.ms);
-            tally.alternative[i] += reject as u64;
-            match df2 {
-                Some(df2) => {
-                    tally.df_sum[i] += df2;
-                    tally.df_runs[i] += 1;
-                }
-                None => tally.undefined[i] += 1,
-            }
-        }
+        self.tally_planned(&x.ms, tally);
         for (i, test) in self.tests.iter().enumerate() {
             x.null_y.copy_from_slice(&x.y);
             match test.own {

@@ -413,8 +413,13 @@ pub fn validate(layout: &Layout) -> Result<(), (Option<usize>, String)> {
             }
         }
         let r = &layout.removed[fails - 1];
-        let (f, key) = unobserved_fixed_level(layout, &counts_after(layout, fails))
-            .expect("bisection ends at a failing prefix");
+        // `fails` only ever holds a prefix that fails, so this finds the level.
+        let Some((f, key)) = unobserved_fixed_level(layout, &counts_after(layout, fails)) else {
+            return Err((
+                r.line,
+                "the removals leave a fixed level with no observation: a fixed level that is never observed cannot be compared".to_string(),
+            ));
+        };
         let factor = &s.factors[f];
         return Err((
             r.line,
