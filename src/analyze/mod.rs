@@ -1,6 +1,7 @@
-//! The `analyze` job: the analysis of variance of real balanced data, each term tested
-//! over the error term the layout plans for it, with variance components by the method of
-//! moments and the means of the fixed terms.
+//! The `analyze` job: the analysis of variance of real data, each term tested over the
+//! error term the layout plans for it, with variance components by the method of moments
+//! and the means of the fixed terms. This module holds the reading and the balanced
+//! analysis; data with missing observations go to `unbalanced`.
 //!
 //! # Reading the data
 //!
@@ -9,7 +10,8 @@
 //! labels are read within their nest: `bench1` under `light1` and `bench1` under `light2`
 //! are different benches. Labels that are unique across nests (`bench1` ... `bench6`) work
 //! as well, since each nest then simply holds its own labels. Levels are numbered in the
-//! order they first appear.
+//! order they first appear. A cell may hold fewer rows than the layout's replicates, or
+//! none, and a response that is empty or `NA` is a missing value (the row is left out).
 //!
 //! # Tests
 //!
