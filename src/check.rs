@@ -299,23 +299,16 @@ pub fn check_with_goal(
                     }),
                     power: plans[i].and_then(|p| p.power),
                 };
-                let wanted = e.verdict != Verdict::NotEstimable && goal.covers(t.live);
-                let short = wanted && !meets(goal, &outcome);
-                let repairs: Vec<RepairReport> = if short {
-                    repairs(&layout, plan, goal, t.live)
-                        .iter()
-                        .map(|r| repair_report(&layout, r))
-                        .collect()
-                } else {
-                    Vec::new()
-                };
-                let mut reason = reason;
-                if short && e.verdict.is_testable() {
-                    reason = Some(shortfall(goal, &outcome, reason));
-                }
-                if let Some(r) = &reason {
-                    findings.push(finding(&labels[i], e.verdict, r, &repairs));
-                }
+                let (repairs, reason) = review(
+                    &layout,
+                    plan,
+                    goal,
+                    t.live,
+                    &labels[i],
+                    &outcome,
+                    reason,
+                    &mut findings,
+                );
                 TestReport {
                     verdict: e.verdict,
                     denominator: e
@@ -504,6 +497,39 @@ fn one_level_factors(layout: &Layout, live: u32) -> String {
 }
 
 /// How a testable term misses the goal, in words (added to any other reason).
+/// Holds a term's test to the goal: when it falls short, the cheapest repairs and the
+/// shortfall added to its reason; a reason there is goes into the findings.
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn review(
+    layout: &Layout,
+    plan: &PlanningValues,
+    goal: &Goal,
+    live: crate::term::Mask,
+    label: &str,
+    outcome: &Outcome,
+    reason: Option<String>,
+    findings: &mut Vec<String>,
+) -> (Vec<RepairReport>, Option<String>) {
+    let wanted = outcome.verdict != Verdict::NotEstimable && goal.covers(live);
+    let short = wanted && !meets(goal, outcome);
+    let repairs: Vec<RepairReport> = if short {
+        repairs(layout, plan, goal, live)
+            .iter()
+            .map(|r| repair_report(layout, r))
+            .collect()
+    } else {
+        Vec::new()
+    };
+    let mut reason = reason;
+    if short && outcome.verdict.is_testable() {
+        reason = Some(shortfall(goal, outcome, reason));
+    }
+    if let Some(r) = &reason {
+        findings.push(finding(label, outcome.verdict, r, &repairs));
+    }
+    (repairs, reason)
+}
+
 pub(crate) fn shortfall(goal: &Goal, o: &Outcome, reason: Option<String>) -> String {
     let mut parts = Vec::new();
     if goal.exact_only && o.verdict != Verdict::Exact {

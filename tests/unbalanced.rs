@@ -589,32 +589,4 @@ fn type3_with_an_empty_cell_loses_df_and_says_so() {
 
 /// Light (fixed, 2) with chambers (random, 3 per light), cultivars (fixed, 3), 2 pots: a
 /// chamber lost, a pot lost, and one chamber's whole third cultivar lost.
-const EMPTY_CELL: &str = r#"
-[layout]
-replicates = 2
-[[layout.remove]]
-light = 2
-chamber = 3
-[[layout.remove]]
-light = 1
-chamber = 1
-cultivar = 2
-replicate = 2
-[[layout.remove]]
-light = 1
-chamber = 2
-cultivar = 3
-[[factor]]
-name = "light"
-kind = "fixed"
-levels = 2
-[[factor]]
-name = "chamber"
-kind = "random"
-levels = 3
-within = ["light"]
-[[factor]]
-name = "cultivar"
-kind = "fixed"
-levels = 3
-"#;
+const EMPTY_CELL: &str = include_str!("fixtures/layouts/chambers-empty-cell.toml");

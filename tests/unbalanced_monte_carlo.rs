@@ -32,35 +32,7 @@ const TOLERANCE_SE: f64 = 4.0;
 
 /// Light (fixed, 2) x cultivar (fixed, 3) with chambers (random, 3 per light), 2 pots per
 /// cultivar and chamber; one chamber lost, one pot lost, one chamber's whole cultivar lost.
-const LAYOUT: &str = r#"
-[layout]
-replicates = 2
-[[layout.remove]]
-light = 2
-chamber = 3
-[[layout.remove]]
-light = 1
-chamber = 1
-cultivar = 2
-replicate = 2
-[[layout.remove]]
-light = 1
-chamber = 2
-cultivar = 3
-[[factor]]
-name = "light"
-kind = "fixed"
-levels = 2
-[[factor]]
-name = "chamber"
-kind = "random"
-levels = 3
-within = ["light"]
-[[factor]]
-name = "cultivar"
-kind = "fixed"
-levels = 3
-"#;
+const LAYOUT: &str = include_str!("fixtures/layouts/chambers-empty-cell.toml");
 
 /// Projection onto the column space of x, by SVD with a relative rank threshold.
 fn projection(x: &DMatrix<f64>) -> (DMatrix<f64>, usize) {

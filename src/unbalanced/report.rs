@@ -4,14 +4,14 @@
 use serde::Serialize;
 
 use crate::check::{
-    CheckReport, Coefficient, Component, DenominatorPart, NO_COMBINATION, RepairReport, TermReport,
-    TestReport, finding, planning_notes, repair_report, shortfall, symbol, synthetic_reason,
+    CheckReport, Coefficient, Component, DenominatorPart, NO_COMBINATION, TermReport, TestReport,
+    planning_notes, review, symbol, synthetic_reason,
 };
 use crate::errorterm::Verdict;
 use crate::goal::Goal;
 use crate::layout::{Kind, Layout, SumsOfSquares};
 use crate::planning::{Cost, CostLine, PlanningValues};
-use crate::repair::{Outcome, meets, repairs};
+use crate::repair::Outcome;
 use crate::term::{Mask, REPLICATE};
 
 use super::Analysis;
@@ -387,23 +387,16 @@ pub fn check(
                     denominator_df: plans[i].and_then(|p| p.denominator_df).or(exact_df),
                     power: plans[i].and_then(|p| p.power),
                 };
-                let wanted = e.verdict != Verdict::NotEstimable && goal.covers(t.live);
-                let short = wanted && !meets(goal, &outcome);
-                let repairs: Vec<RepairReport> = if short {
-                    repairs(layout, plan, goal, t.live)
-                        .iter()
-                        .map(|r| repair_report(layout, r))
-                        .collect()
-                } else {
-                    Vec::new()
-                };
-                let mut reason = reason;
-                if short && e.verdict.is_testable() {
-                    reason = Some(shortfall(goal, &outcome, reason));
-                }
-                if let Some(r) = &reason {
-                    findings.push(finding(&labels[i], e.verdict, r, &repairs));
-                }
+                let (repairs, reason) = review(
+                    layout,
+                    plan,
+                    goal,
+                    t.live,
+                    &labels[i],
+                    &outcome,
+                    reason,
+                    &mut findings,
+                );
                 TestReport {
                     verdict: e.verdict,
                     denominator: e
