@@ -236,14 +236,10 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 check_with_goal(l, c, p, g).map_err(|e| e.in_file(&path))
             };
             match convention {
-                Some(ConventionArg::Both) => {
-                    let r = check_with_goal(&layout, Convention::Restricted, &plan, &goal)?;
-                    let u = check_with_goal(&layout, Convention::Unrestricted, &plan, &goal)?;
-                    Ok(render::check::render_both(
-                        &render::check::BothReport::new(r, u),
-                        format,
-                    ))
-                }
+                Some(ConventionArg::Both) => Ok(render::check::render_both(
+                    &crate::check::check_both(&layout, &plan, &goal).map_err(|e| e.in_file(&path))?,
+                    format,
+                )),
                 other => {
                     let c = match other {
                         Some(ConventionArg::Restricted) => Convention::Restricted,
@@ -331,12 +327,6 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 return Err(Error::Usage("--top must be at least 1".into()));
             }
             let p = Problem::from_file(&problem, alpha, power)?;
-            if !p.base.is_balanced() {
-                return Err(Error::Usage(format!(
-                    "{}: the design search plans balanced layouts; remove the [[layout.remove]] tables to search, then check the chosen layout with its losses",
-                    problem.display()
-                )));
-            }
             let search = Search::new(p).map_err(|e| e.in_file(&problem))?;
             let space = search.space();
             eprintln!(
@@ -412,42 +402,47 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             seed,
             planning,
         } => {
-            let side = load_side(&layout, &planning)?;
-            let mut report =
-                crate::report::build(&side.layout, &side.plan, &side.goal, command_line())?;
-            if crate::spec::read(&layout)?.0.search.is_some() {
-                use crate::search::{Options, Problem, Search};
-                let p = Problem::from_file(&layout, planning.alpha, planning.power)?;
-                if !p.base.is_balanced() {
-                    return Err(Error::Usage(format!(
-                        "{}: the design search plans balanced layouts; remove the [[layout.remove]] tables to search",
-                        layout.display()
-                    )));
-                }
-                let search = Search::new(p).map_err(|e| e.in_file(&layout))?;
-                let found = search
-                    .run(&Options::default(), &crate::search::Quiet)
-                    .map_err(|e| e.in_file(&layout))?;
-                report.sections.push(render::report::search_section(&found));
-            }
-            if let Some(runs) = runs {
-                if runs == 0 || runs > crate::simulate::MAX_RUNS {
+            let (base, spec, text) = Layout::from_file(&layout)?;
+            let in_file = |e: Error| e.in_file(&layout);
+            let mut plan = PlanningValues::from_spec(&spec, &text, &base).map_err(in_file)?;
+            planning.apply(&mut plan)?;
+            let goal = Goal::from_spec(&spec, &text, &base).map_err(in_file)?;
+            let problem = match spec.search {
+                None => None,
+                Some(_) => Some(
+                    crate::search::Problem::from_spec(
+                        &spec,
+                        &text,
+                        base.clone(),
+                        plan.clone(),
+                        planning.power,
+                    )
+                    .map_err(in_file)?,
+                ),
+            };
+            let monte_carlo = match runs {
+                None => None,
+                Some(runs) if runs == 0 || runs > crate::simulate::MAX_RUNS => {
                     return Err(Error::Usage(format!(
                         "--runs {runs}: ask for between 1 and {} data sets",
                         crate::simulate::MAX_RUNS
                     )));
                 }
-                let request = crate::simulate::Request {
+                Some(runs) => Some(crate::simulate::Request {
                     seed,
                     runs,
                     data: None,
-                };
-                let (mc, _) = crate::simulate::simulate(&side.layout, &side.plan, &request)
-                    .map_err(|e| e.in_file(&layout))?;
-                report
-                    .sections
-                    .push(render::report::monte_carlo_section(&mc));
-            }
+                }),
+            };
+            let report = crate::report::compose(
+                &base,
+                &plan,
+                &goal,
+                command_line(),
+                problem,
+                monte_carlo,
+            )
+            .map_err(in_file)?;
             write_report(&report, output.as_deref(), markdown)
         }
     }

@@ -4,13 +4,13 @@
 
 use serde::Serialize;
 
-use crate::check::{CheckReport, TermReport, check_with_goal};
+use crate::check::check_with_goal;
+use crate::findings::{CheckReport, DenominatorPart, TermReport};
 use crate::error::Error;
 use crate::errorterm::Verdict;
 use crate::goal::Goal;
 use crate::layout::{Convention, Kind, Layout, RESTRICTED_UNBALANCED, SumsOfSquares};
 use crate::planning::{CostModel, Effect, PlanningValues, check_probability};
-use crate::render::check::tested_over;
 use crate::term::{Mask, REPLICATE, parse_term_label};
 use crate::unbalanced::removal::{Removal, parse_cell};
 use crate::variant::{drop_factor, set_within};
@@ -391,7 +391,8 @@ pub enum Status {
 pub struct SideTest {
     pub label: String,
     pub verdict: Option<Verdict>,
-    pub tested_over: Option<String>,
+    /// The error term: one mean square, or a combination.
+    pub denominator: Vec<DenominatorPart>,
     pub df: u64,
     pub denominator_df: Option<f64>,
     pub power: Option<f64>,
@@ -424,7 +425,6 @@ pub struct Comparison {
     pub notes: Vec<String>,
     pub terms: Vec<TermComparison>,
     pub cost: CostComparison,
-    pub verdict: String,
 }
 
 /// Compares two sides under an optional convention override.
@@ -438,7 +438,7 @@ pub fn compare(
     let mut notes = notes;
     // An unbalanced side is computed under the unrestricted model; so is the other, so
     // that the two differ only in the changes.
-    let unbalanced = !base.layout.is_balanced() || !other.layout.is_balanced();
+    let unbalanced = !base.layout.removed.is_empty() || !other.layout.removed.is_empty();
     let convention = if unbalanced {
         if convention == Some(Convention::Restricted) {
             return Err(Error::Usage(format!(
@@ -474,7 +474,12 @@ pub fn compare(
     let side_test = |t: &TermReport| SideTest {
         label: t.label.clone(),
         verdict: t.test.as_ref().map(|x| x.verdict),
-        tested_over: t.test.as_ref().map(tested_over),
+        denominator: t
+            .test
+            .as_ref()
+            .filter(|x| x.verdict.is_testable())
+            .map(|x| x.denominator.clone())
+            .unwrap_or_default(),
         df: t.df,
         denominator_df: t.test.as_ref().and_then(|x| x.denominator_df),
         power: t.test.as_ref().and_then(|x| x.power),
@@ -519,7 +524,6 @@ pub fn compare(
         other: total(&o),
         difference: total(&b).zip(total(&o)).map(|(x, y)| y - x),
     };
-    let verdict = verdict_text(&changes, &terms, &cost);
     Ok(Comparison {
         base: b,
         other: o,
@@ -527,11 +531,10 @@ pub fn compare(
         notes,
         terms,
         cost,
-        verdict,
     })
 }
 
-fn testable(t: &Option<SideTest>) -> bool {
+pub fn testable(t: &Option<SideTest>) -> bool {
     t.as_ref()
         .and_then(|x| x.verdict)
         .is_some_and(|v| v.is_testable())
@@ -544,7 +547,7 @@ fn judge(
     must_test: bool,
 ) -> TermComparison {
     let error_term_changed = match (&base, &other) {
-        (Some(b), Some(o)) => b.tested_over != o.tested_over,
+        (Some(b), Some(o)) => !same_denominator(&b.denominator, &o.denominator),
         _ => true,
     };
     let status = match (testable(&base), testable(&other)) {
@@ -588,114 +591,13 @@ fn judge(
     }
 }
 
-fn df_text(x: Option<f64>) -> String {
-    x.map_or("unknown".into(), crate::render::num)
-}
-
-/// The one-paragraph verdict: what the change costs or saves, what stays testable, and
-/// what gets weaker or stronger among the terms the goal covers.
-fn verdict_text(changes: &[String], terms: &[TermComparison], cost: &CostComparison) -> String {
-    let what = if changes.is_empty() {
-        "The other layout".to_string()
-    } else {
-        format!("The change ({})", changes.join(", "))
-    };
-    let money = match cost.difference {
-        Some(d) if d < 0.0 => format!("saves {}", crate::render::num(-d)),
-        Some(d) if d > 0.0 => format!("costs {} more", crate::render::num(d)),
-        Some(_) => "costs the same".into(),
-        None => "has no price (no [cost] table)".into(),
-    };
-    let focus: Vec<&TermComparison> = terms.iter().filter(|t| t.must_test).collect();
-    let lost: Vec<&str> = focus
-        .iter()
-        .filter(|t| t.status == Status::Lost)
-        .map(|t| t.label.as_str())
-        .collect();
-    let gained: Vec<&str> = focus
-        .iter()
-        .filter(|t| t.status == Status::Gained)
-        .map(|t| t.label.as_str())
-        .collect();
-    let all_testable = focus.iter().all(|t| testable(&t.other));
-    let mut sentence = format!("{what} {money}");
-    if lost.is_empty() {
-        if all_testable {
-            sentence.push_str(" and keeps every term that matters testable");
-        } else {
-            sentence.push_str(" and loses no test");
-        }
-    } else {
-        sentence.push_str(&format!(
-            ", but {} can no longer be tested",
-            lost.join(", ")
-        ));
-    }
-    if !gained.is_empty() {
-        sentence.push_str(&format!("; {} becomes testable", gained.join(", ")));
-    }
-    let change_of = |t: &TermComparison| -> Option<String> {
-        let (b, o) = (t.base.as_ref()?, t.other.as_ref()?);
-        let mut parts = Vec::new();
-        if b.denominator_df != o.denominator_df {
-            parts.push(format!(
-                "denominator df from {} to {}",
-                df_text(b.denominator_df),
-                df_text(o.denominator_df)
-            ));
-        }
-        if let (Some(x), Some(y)) = (b.power, o.power)
-            && (x - y).abs() > 0.005
-        {
-            parts.push(format!("power from {x:.2} to {y:.2}"));
-        }
-        if t.error_term_changed {
-            parts.push(format!(
-                "error term {} instead of {}",
-                o.tested_over.as_deref().unwrap_or("none"),
-                b.tested_over.as_deref().unwrap_or("none")
-            ));
-        }
-        (!parts.is_empty()).then(|| parts.join(", "))
-    };
-    let weaker: Vec<String> = focus
-        .iter()
-        .filter(|t| t.status == Status::Weaker)
-        .filter_map(|t| change_of(t).map(|c| format!("the {} test gets weaker ({c})", t.label)))
-        .collect();
-    let stronger: Vec<String> = focus
-        .iter()
-        .filter(|t| t.status == Status::Stronger)
-        .filter_map(|t| change_of(t).map(|c| format!("the {} test gets stronger ({c})", t.label)))
-        .collect();
-    let moved: Vec<String> = focus
-        .iter()
-        .filter(|t| {
-            t.status == Status::Same
-                && t.error_term_changed
-                && testable(&t.base)
-                && testable(&t.other)
+/// Whether two layouts' denominators are the same mean squares (by the terms' factor
+/// names: a term's identity across two layout files) with the same weights.
+fn same_denominator(a: &[DenominatorPart], b: &[DenominatorPart]) -> bool {
+    a.len() == b.len()
+        && a.iter().zip(b).all(|(x, y)| {
+            x.term == y.term
+                && (x.coefficient.value() - y.coefficient.value()).abs()
+                    <= 1e-9 * x.coefficient.value().abs().max(1.0)
         })
-        .filter_map(|t| {
-            let (b, o) = (t.base.as_ref()?, t.other.as_ref()?);
-            Some(format!(
-                "{} is tested over {} instead of {}",
-                t.label,
-                o.tested_over.as_deref().unwrap_or("none"),
-                b.tested_over.as_deref().unwrap_or("none")
-            ))
-        })
-        .collect();
-    if !weaker.is_empty() {
-        sentence.push_str(&format!(", but {}", weaker.join("; ")));
-    }
-    if !stronger.is_empty() {
-        let joiner = if weaker.is_empty() { ", and " } else { "; " };
-        sentence.push_str(&format!("{joiner}{}", stronger.join("; ")));
-    }
-    if !moved.is_empty() {
-        sentence.push_str(&format!("; {}", moved.join("; ")));
-    }
-    sentence.push('.');
-    sentence
 }

@@ -5,7 +5,7 @@
 //! with E(D) = E(MS_T) - c_T θ_T, identically in every component. The test is
 //!
 //! - `exact` when one estimable mean square is such a D (an F ratio);
-//! - `synthetic` when only a linear combination Σ w_V MS_V is (a quasi-F ratio,
+//! - `quasi_f` when only a linear combination Σ w_V MS_V is (a quasi-F ratio,
 //!   Satterthwaite 1946 for its df); the combination with the fewest mean squares is
 //!   preferred, and the weights are solved exactly over the rationals;
 //! - `untestable` when no combination exists;
@@ -36,24 +36,19 @@ use crate::ems::{Ems, Model, Rational};
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Verdict {
+    /// One mean square is the error term: an F ratio.
     Exact,
-    Synthetic,
+    /// Only a combination of mean squares is: a quasi-F ratio (an approximate F test).
+    QuasiF,
+    /// No mean square or combination has the expectation needed.
     Untestable,
+    /// The term has 0 df.
     NotEstimable,
 }
 
 impl Verdict {
-    pub fn name(self) -> &'static str {
-        match self {
-            Verdict::Exact => "exact",
-            Verdict::Synthetic => "synthetic",
-            Verdict::Untestable => "untestable",
-            Verdict::NotEstimable => "not_estimable",
-        }
-    }
-
     pub fn is_testable(self) -> bool {
-        matches!(self, Verdict::Exact | Verdict::Synthetic)
+        matches!(self, Verdict::Exact | Verdict::QuasiF)
     }
 }
 
@@ -141,7 +136,7 @@ pub fn error_term(model: &Model, ems: &Ems, df: &[u64], t: usize) -> ErrorTerm {
             }
         }
         Some(denominator) if !denominator.is_empty() => ErrorTerm {
-            verdict: Verdict::Synthetic,
+            verdict: Verdict::QuasiF,
             denominator,
             isolated: Vec::new(),
         },
@@ -218,34 +213,6 @@ pub fn weight_text(w: &Rational) -> String {
     } else {
         format!("{}/{}", w.numer(), w.denom())
     }
-}
-
-/// A denominator written out: `bench(light)`, or `MS[a x b] + MS[a x c] - MS[a x b x c]`.
-pub fn denominator_text(parts: &[(String, Rational)]) -> String {
-    if let [(label, w)] = parts
-        && *w == Rational::from_integer(1)
-    {
-        return label.clone();
-    }
-    parts
-        .iter()
-        .enumerate()
-        .map(|(k, (label, w))| {
-            let sign = match (k, w.is_negative()) {
-                (0, false) => "",
-                (0, true) => "-",
-                (_, false) => " + ",
-                (_, true) => " - ",
-            };
-            let mag = w.abs();
-            let mag = if mag == Rational::from_integer(1) {
-                String::new()
-            } else {
-                format!("{}·", weight_text(&mag))
-            };
-            format!("{sign}{mag}MS[{label}]")
-        })
-        .collect()
 }
 
 /// Whether every weight is positive (a denominator that cannot go negative).

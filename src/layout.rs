@@ -229,6 +229,12 @@ impl Layout {
         self.removed.is_empty()
     }
 
+    /// Whether the convention is defined for this layout: the restricted model only for a
+    /// balanced one (its sums to zero run over equal numbers of observations).
+    pub fn defines(&self, convention: Convention) -> bool {
+        convention == Convention::Unrestricted || self.removed.is_empty()
+    }
+
     /// Observations in the layout, after any removals.
     pub fn observations(&self) -> u64 {
         if self.is_balanced() {

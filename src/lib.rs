@@ -5,6 +5,8 @@
 //! tested) -> the jobs (`check`, ...) -> `render`. `cli` is a thin shell over them.
 
 pub mod analyze;
+pub mod engine;
+pub mod findings;
 pub mod balanced;
 pub mod check;
 pub mod cli;

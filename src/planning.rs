@@ -10,9 +10,8 @@ use std::collections::BTreeMap;
 use serde::Serialize;
 
 use crate::dist::{self, CriticalValue};
-use crate::ems::{Ems, Model, Rational};
+use crate::ems::{Model, Rational};
 use crate::error::Error;
-use crate::errorterm::{ErrorTerm, Verdict};
 use crate::layout::{Kind, Layout, Levels, Structure, term_of};
 use crate::spec::{self, EffectSpec, Spec};
 use crate::term::{Mask, REPLICATE, Term, parse_term_label};
@@ -209,7 +208,7 @@ fn non_negative(x: f64) -> Result<f64, String> {
 /// Power and related figures of one term's test.
 #[derive(Debug, Clone, Copy, PartialEq, Serialize)]
 pub struct TestPlan {
-    /// Denominator df: the mean square's df, or Satterthwaite's for a synthetic test.
+    /// Denominator df: the mean square's df, or Satterthwaite's for a combination.
     pub denominator_df: Option<f64>,
     pub power: Option<f64>,
     /// Smallest effect (fixed: root mean square; random: standard deviation) found with
@@ -219,28 +218,36 @@ pub struct TestPlan {
     pub noncentrality: Option<f64>,
 }
 
-/// Expected mean squares in the response's units (squared), from the planning values.
-/// Components with no prior or effect count as zero.
-pub fn ems_values(model: &Model, ems: &Ems, plan: &PlanningValues, levels: &Levels) -> Vec<f64> {
-    let theta: Vec<f64> = component_values(model, plan, levels);
-    ems.rows
-        .iter()
-        .map(|row| row.iter().map(|(c, k)| to_f64(k) * theta[*c]).sum())
-        .collect()
+/// What the power of one term's test depends on, whichever engine found the test.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TestInput {
+    pub kind: Kind,
+    /// The term's df (numerator df).
+    pub df: u64,
+    /// Coefficient of the term's own component in its expected mean square.
+    pub own: f64,
+    /// The planned value of the term's own component (σ² or κ²), `None` when the
+    /// planning values give the term none.
+    pub own_value: Option<f64>,
+    /// The denominator: (weight, expected mean square under the planning values, df)
+    /// of each mean square in it.
+    pub denominator: Vec<(f64, f64, u64)>,
+    /// One mean square with weight 1: its df are the denominator df.
+    pub exact: bool,
+    /// df / cells of the term in the full layout: κ² = RMS² / effect_scale.
+    pub effect_scale: f64,
 }
 
-/// The value of each component: σ² for a random term (prior squared), κ² = Σ effect² / df
-/// = RMS² × cells / df for a fixed term.
-pub fn component_values(model: &Model, plan: &PlanningValues, levels: &Levels) -> Vec<f64> {
-    model
-        .terms
-        .iter()
-        .enumerate()
-        .map(|(i, t)| match model.kinds[i] {
-            Kind::Random => plan.priors.get(&t.live).map_or(0.0, |sd| sd * sd),
-            Kind::Fixed => plan.effects.get(&t.live).map_or(0.0, |e| {
-                let cells = t.cells(levels);
-                let df = t.df(levels);
+/// The component values θ: σ² for a random term (its planned standard deviation
+/// squared), κ² = Σ effect² / df = RMS² × cells / df for a fixed term; zero for a term
+/// the planning values leave out.
+impl PlanningValues {
+    pub fn component_value(&self, term: &Term, kind: Kind, levels: &Levels) -> f64 {
+        match kind {
+            Kind::Random => self.priors.get(&term.live).map_or(0.0, |sd| sd * sd),
+            Kind::Fixed => self.effects.get(&term.live).map_or(0.0, |e| {
+                let cells = term.cells(levels);
+                let df = term.df(levels);
                 if df == 0 {
                     0.0
                 } else {
@@ -248,8 +255,18 @@ pub fn component_values(model: &Model, plan: &PlanningValues, levels: &Levels) -
                     rms * rms * cells as f64 / df as f64
                 }
             }),
-        })
-        .collect()
+        }
+    }
+
+    /// `component_value` of every term of a model, the residual last.
+    pub fn component_values(&self, model: &Model, levels: &Levels) -> Vec<f64> {
+        model
+            .terms
+            .iter()
+            .zip(&model.kinds)
+            .map(|(t, &k)| self.component_value(t, k, levels))
+            .collect()
+    }
 }
 
 pub fn to_f64(r: &Rational) -> f64 {
@@ -271,43 +288,30 @@ pub fn satterthwaite(parts: &[(f64, f64, u64)]) -> Option<f64> {
     }
 }
 
-/// Power, Satterthwaite df and minimum detectable effect of every test.
-/// `values` are the expected mean squares from `ems_values`.
-pub fn plan_tests(
-    model: &Model,
-    ems: &Ems,
-    df: &[u64],
-    tests: &[Option<ErrorTerm>],
-    plan: &PlanningValues,
-    levels: &Levels,
-) -> Vec<Option<TestPlan>> {
-    let values = ems_values(model, ems, plan, levels);
-    let n = levels.observations() as f64;
-    tests
-        .iter()
-        .enumerate()
-        .map(|(t, test)| {
-            let test = test.as_ref()?;
-            if !test.verdict.is_testable() {
-                return None;
-            }
-            Some(plan_one(model, ems, df, test, plan, &values, n, t))
-        })
-        .collect()
+/// The power of a term's test, the one formula every job uses.
+///
+/// - Fixed term: noncentral F with λ = df₁ c_T κ²_T / E(D), where c_T κ²_T (`signal`) is
+///   the term's own part of E(MS_T) (in a balanced layout λ = N × RMS² / E(D)).
+/// - Random term: P(F > F_crit × E(D) / E(MS_T)) with E(MS_T) = E(D) + c_T σ²_T, since
+///   MS_T / E(MS_T) over D / E(D) is F-distributed under the model.
+pub fn power(critical: &CriticalValue, kind: Kind, df: f64, signal: f64, denominator: f64) -> f64 {
+    match kind {
+        Kind::Fixed => critical.fixed_power((df * signal / denominator).max(0.0)),
+        Kind::Random => critical.random_power(denominator / (denominator + signal)),
+    }
 }
 
-#[allow(clippy::too_many_arguments)]
-fn plan_one(
-    model: &Model,
-    ems: &Ems,
-    df: &[u64],
-    test: &ErrorTerm,
-    plan: &PlanningValues,
-    values: &[f64],
-    n: f64,
-    t: usize,
-) -> TestPlan {
-    let exact_df = (test.verdict == Verdict::Exact).then(|| df[test.denominator[0].0] as f64);
+/// Power, denominator df and minimum detectable effect of one test (see `power`).
+///
+/// Minimum detectable effects: for a fixed term the noncentrality λ* that gives the
+/// target power, so κ² = λ* E(D) / (df₁ c_T) and RMS = √(κ² × df / cells); for a random
+/// term, P(F > F_crit × r) = power ⇔ F_crit × r = F quantile at 1 - power, and
+/// σ = √(E(D) (1/r - 1) / c_T).
+pub fn plan_test(input: &TestInput, plan: &PlanningValues) -> TestPlan {
+    let exact_df = input
+        .exact
+        .then(|| input.denominator.first().map(|&(_, _, d)| d as f64))
+        .flatten();
     let mut out = TestPlan {
         denominator_df: exact_df,
         power: None,
@@ -317,51 +321,35 @@ fn plan_one(
     if !plan.has_priors() {
         return out;
     }
-    let den: f64 = test
-        .denominator
-        .iter()
-        .map(|(v, w)| to_f64(w) * values[*v])
-        .sum();
-    let df2 = match exact_df {
-        Some(d) => Some(d),
-        None => satterthwaite(
-            &test
-                .denominator
-                .iter()
-                .map(|(v, w)| (to_f64(w), values[*v], df[*v]))
-                .collect::<Vec<_>>(),
-        ),
-    };
+    let den: f64 = input.denominator.iter().map(|(w, e, _)| w * e).sum();
+    let df2 = exact_df.or_else(|| satterthwaite(&input.denominator));
     out.denominator_df = df2;
     let Some(df2) = df2 else { return out };
-    if den <= 0.0 || !den.is_finite() {
+    if den <= 0.0 || !den.is_finite() || input.own <= 0.0 {
         return out;
     }
-    let df1 = df[t] as f64;
+    let df1 = input.df as f64;
     let critical = CriticalValue::new(plan.alpha, df1, df2);
-    let term = model.terms[t];
-    match model.kinds[t] {
+    let signal = input.own_value.map(|theta| input.own * theta);
+    match input.kind {
         Kind::Fixed => {
-            // λ = df1 (E(MS_T) - E(D)) / E(D) = N × RMS² / E(D).
-            if plan.effects.contains_key(&term.live) {
-                let lambda = df1 * (values[t] - den) / den;
-                out.noncentrality = Some(lambda);
-                out.power = Some(critical.fixed_power(lambda.max(0.0)));
+            if let Some(signal) = signal {
+                out.noncentrality = Some(df1 * signal / den);
+                out.power = Some(power(&critical, Kind::Fixed, df1, signal, den));
             }
-            out.min_detectable =
-                min_noncentrality(&critical, plan.power).map(|lambda| (lambda * den / n).sqrt());
+            out.min_detectable = min_noncentrality(&critical, plan.power).map(|lambda| {
+                let kappa = lambda * den / (df1 * input.own);
+                (kappa * input.effect_scale).sqrt()
+            });
         }
         Kind::Random => {
-            let own = ems.coefficient(t, t);
-            let own = to_f64(&own);
-            if plan.priors.contains_key(&term.live) && values[t] > 0.0 {
-                out.power = Some(critical.random_power(den / values[t]));
+            if let Some(signal) = signal.filter(|s| *s > 0.0) {
+                out.power = Some(power(&critical, Kind::Random, df1, signal, den));
             }
-            // P(F > F_crit × r) = power  ⇔  F_crit × r = F quantile at 1 - power.
             let q = dist::f_quantile(1.0 - plan.power, df1, df2);
             let r = q / critical.value();
-            if r > 0.0 && r < 1.0 && own > 0.0 {
-                out.min_detectable = Some((den * (1.0 / r - 1.0) / own).sqrt());
+            if r > 0.0 && r < 1.0 {
+                out.min_detectable = Some((den * (1.0 / r - 1.0) / input.own).sqrt());
             }
         }
     }
@@ -412,36 +400,72 @@ pub struct Cost {
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct CostLine {
-    pub term: String,
+    /// The priced term's live set (`REPLICATE`: each observation).
+    #[serde(skip)]
+    pub term: Mask,
+    /// Its label, `residual` for each observation.
+    #[serde(rename = "term")]
+    pub label: String,
     /// Cells of the term: each unit bought (each observation for the residual).
     pub units: u64,
     pub per_unit: f64,
     pub cost: f64,
 }
 
-/// Overhead plus, for each priced term, its price times its number of cells.
-pub fn cost(model: &CostModel, structure: &Structure, levels: &Levels) -> Cost {
-    let breakdown: Vec<CostLine> = model
-        .per_unit
-        .iter()
-        .map(|&(live, price)| {
-            let (term, units) = if live == REPLICATE {
-                ("residual".to_string(), levels.observations())
-            } else {
-                let t = term_of(structure, live);
-                (t.label(structure), t.cells(levels))
-            };
-            CostLine {
-                term,
-                units,
-                per_unit: price,
-                cost: price * units as f64,
-            }
-        })
-        .collect();
-    Cost {
-        total: model.overhead + breakdown.iter().map(|l| l.cost).sum::<f64>(),
-        overhead: model.overhead,
-        breakdown,
+/// The one cost formula: overhead plus Σ price × units bought, over (price, units) lines.
+pub fn priced_total(overhead: f64, lines: impl IntoIterator<Item = (f64, u64)>) -> f64 {
+    overhead
+        + lines
+            .into_iter()
+            .map(|(price, units)| price * units as f64)
+            .sum::<f64>()
+}
+
+impl CostModel {
+    /// `priced_total` with the units bought of each priced term (`units` of its live set;
+    /// of `REPLICATE` for each observation).
+    pub fn total(&self, mut units: impl FnMut(Mask) -> u64) -> f64 {
+        priced_total(
+            self.overhead,
+            self.per_unit.iter().map(|&(live, price)| (price, units(live))),
+        )
     }
+
+    /// `total` with the breakdown by term.
+    pub fn cost(&self, structure: &Structure, mut units: impl FnMut(Mask) -> u64) -> Cost {
+        let breakdown: Vec<CostLine> = self
+            .per_unit
+            .iter()
+            .map(|&(live, price)| {
+                let n = units(live);
+                CostLine {
+                    term: live,
+                    label: if live == REPLICATE {
+                        "residual".to_string()
+                    } else {
+                        term_of(structure, live).label(structure)
+                    },
+                    units: n,
+                    per_unit: price,
+                    cost: price * n as f64,
+                }
+            })
+            .collect();
+        Cost {
+            total: priced_total(self.overhead, breakdown.iter().map(|l| (l.per_unit, l.units))),
+            overhead: self.overhead,
+            breakdown,
+        }
+    }
+}
+
+/// What a balanced layout costs: every cell of a priced term is bought.
+pub fn cost(model: &CostModel, structure: &Structure, levels: &Levels) -> Cost {
+    model.cost(structure, |live| {
+        if live == REPLICATE {
+            levels.observations()
+        } else {
+            term_of(structure, live).cells(levels)
+        }
+    })
 }

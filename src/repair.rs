@@ -7,11 +7,12 @@
 //! change what is bought; an omitted interaction changes what is assumed, and is marked
 //! as an assumption with its risk.
 
-use crate::ems::Model;
-use crate::errorterm::{ErrorTerm, Verdict, error_term};
+pub use crate::engine::Outcome;
+use crate::engine::Analysis;
+use crate::errorterm::Verdict;
 use crate::goal::Goal;
-use crate::layout::{Kind, Layout, Structure};
-use crate::planning::{PlanningValues, cost, plan_tests};
+use crate::layout::{Kind, Layout};
+use crate::planning::PlanningValues;
 use crate::term::Mask;
 use crate::variant::set_within;
 
@@ -32,14 +33,6 @@ pub enum Change {
     Omit { live: Mask },
 }
 
-/// How a term is tested in a layout: enough to judge it against a goal.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct Outcome {
-    pub verdict: Verdict,
-    pub denominator_df: Option<f64>,
-    pub power: Option<f64>,
-}
-
 #[derive(Debug, Clone, PartialEq)]
 pub struct Repair {
     pub change: Change,
@@ -51,70 +44,6 @@ pub struct Repair {
 }
 
 impl Change {
-    pub fn describe(&self, structure: &Structure, before: &Layout) -> String {
-        let names = |m: Mask| -> String {
-            let v: Vec<&str> = structure
-                .factors
-                .iter()
-                .enumerate()
-                .filter(|(i, _)| m & (1 << i) != 0)
-                .map(|(_, f)| f.name.as_str())
-                .collect();
-            if v.is_empty() {
-                "nothing (crossed with everything)".into()
-            } else {
-                v.join(" and ")
-            }
-        };
-        match self {
-            Change::Levels { factor, to } => {
-                let f = &structure.factors[*factor];
-                let now = before.levels.per_factor[*factor];
-                if f.within == 0 {
-                    format!("use {to} levels of {} (now {now})", f.name)
-                } else {
-                    format!(
-                        "use {to} levels of {} in each {} (now {now})",
-                        f.name,
-                        names(f.within)
-                    )
-                }
-            }
-            Change::Replicates { to } => {
-                format!(
-                    "take {to} replicates per cell (now {})",
-                    before.levels.replicates
-                )
-            }
-            Change::Within { factor, within } => {
-                let f = &structure.factors[*factor];
-                let added = within & !f.within;
-                let removed = f.within & !within;
-                if added != 0 {
-                    format!(
-                        "nest {} within {} as well (a separate {} for each level of {})",
-                        f.name,
-                        names(added),
-                        f.name,
-                        names(added)
-                    )
-                } else {
-                    format!(
-                        "cross {} with {} instead of nesting it there (only if every {} can take every level of {})",
-                        f.name,
-                        names(removed),
-                        f.name,
-                        names(removed)
-                    )
-                }
-            }
-            Change::Omit { live } => format!(
-                "assume {} is absent",
-                crate::layout::term_of(structure, *live).short_label(structure)
-            ),
-        }
-    }
-
     pub fn apply(&self, layout: &Layout) -> Option<Layout> {
         let mut structure = layout.structure.clone();
         let mut levels = layout.levels.clone();
@@ -122,7 +51,7 @@ impl Change {
             Change::Levels { factor, to } => levels.per_factor[factor] = to,
             Change::Replicates { to } => levels.replicates = to,
             // Removals count units within nests, so a new nesting would move them.
-            Change::Within { .. } if !layout.is_balanced() => return None,
+            Change::Within { .. } if !layout.removed.is_empty() => return None,
             Change::Within { factor, within } => return set_within(layout, factor, within).ok(),
             Change::Omit { live } => structure.omitted.push(live),
         }
@@ -134,24 +63,7 @@ impl Change {
 
 /// The test of the term with live set `live`, or `None` when the layout has no such term.
 pub fn outcome(layout: &Layout, plan: &PlanningValues, live: Mask) -> Option<Outcome> {
-    if !layout.is_balanced() {
-        return crate::unbalanced::outcome(layout, plan, live);
-    }
-    let model = Model::new(&layout.structure);
-    let t = model.terms.iter().position(|u| u.live == live)?;
-    let ems = model.ems(&layout.levels).ok()?;
-    let df = model.df(&layout.levels);
-    let e = error_term(&model, &ems, &df, t);
-    let verdict = e.verdict;
-    let exact_df = (verdict == Verdict::Exact).then(|| df[e.denominator[0].0] as f64);
-    let mut tests: Vec<Option<ErrorTerm>> = vec![None; model.terms.len()];
-    tests[t] = Some(e);
-    let planned = plan_tests(&model, &ems, &df, &tests, plan, &layout.levels)[t];
-    Some(Outcome {
-        verdict,
-        denominator_df: planned.and_then(|p| p.denominator_df).or(exact_df),
-        power: planned.and_then(|p| p.power),
-    })
+    Analysis::for_term(layout, live).ok()?.outcome(plan, live)
 }
 
 /// Whether an outcome meets the goal: testable (exactly, if the goal says so), with at
@@ -175,17 +87,16 @@ pub fn meets(goal: &Goal, o: &Outcome) -> bool {
 /// first, changes of material before assumptions at equal cost.
 pub fn repairs(layout: &Layout, plan: &PlanningValues, goal: &Goal, live: Mask) -> Vec<Repair> {
     let s = &layout.structure;
-    let base_cost = plan.cost.as_ref().map(|c| cost(c, s, &layout.levels).total);
+    let Ok(base) = Analysis::for_term(layout, live) else {
+        return Vec::new();
+    };
+    let base_cost = base.cost(plan).map(|c| c.total);
     let judge = |change: Change| -> Option<Repair> {
-        let changed = change.apply(layout)?;
-        let o = outcome(&changed, plan, live)?;
+        let changed = Analysis::for_term(&change.apply(layout)?, live).ok()?;
+        let o = changed.outcome(plan, live)?;
         meets(goal, &o).then(|| Repair {
             assumption: matches!(change, Change::Omit { .. }),
-            cost_change: plan
-                .cost
-                .as_ref()
-                .zip(base_cost)
-                .map(|(c, b)| cost(c, &changed.structure, &changed.levels).total - b),
+            cost_change: changed.cost(plan).zip(base_cost).map(|(c, b)| c.total - b),
             change,
             outcome: o,
         })
@@ -223,12 +134,9 @@ pub fn repairs(layout: &Layout, plan: &PlanningValues, goal: &Goal, live: Mask) 
         }
     }
     // Assumptions: an interaction in the term's expected mean square assumed absent.
-    let model = Model::new(s);
-    if let Some(t) = model.terms.iter().position(|u| u.live == live)
-        && let Ok(ems) = model.ems(&layout.levels)
-    {
-        for &(c, _) in &ems.rows[t] {
-            let u = model.terms[c];
+    if let Some(t) = base.term(live) {
+        for &(c, _) in &base.ems[t] {
+            let u = base.model.terms[c];
             if c != t
                 && !u.is_residual()
                 && u.live.count_ones() >= 2

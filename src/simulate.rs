@@ -72,16 +72,14 @@ use serde::Serialize;
 
 use crate::analyze::anova_numbers;
 use crate::balanced::{self, Balanced, index_in, odometer};
-use crate::check::{Analysis, Coefficient, DenominatorPart};
+use crate::engine::{Analysis, Coefficient, Synthesis};
+use crate::findings::DenominatorPart;
 use crate::dist::{self, CriticalValue};
 use crate::error::Error;
 use crate::errorterm::Verdict;
 use crate::layout::{Convention, Kind, Layout, SumsOfSquares};
-use crate::planning::{
-    Effect, PlanningValues, TestPlan, component_values, ems_values, plan_tests, to_f64,
-};
+use crate::planning::{self, Effect, PlanningValues, TestPlan};
 use crate::term::REPLICATE;
-use crate::unbalanced;
 
 /// Confidence level of the intervals around simulated rates and mean squares.
 pub const CONFIDENCE: f64 = 0.99;
@@ -161,7 +159,7 @@ struct PlannedTest {
 /// What a layout with removals adds: the observations it keeps, their fit, and where
 /// each sits in the full layout.
 struct Kept {
-    analysis: unbalanced::Analysis,
+    synthesis: Synthesis,
     /// Index among the full layout's observations (cell × replicates + replicate) of each
     /// kept observation, in the design's order.
     observation: Vec<usize>,
@@ -178,7 +176,11 @@ struct Kept {
 
 /// A layout's model at its planning values, ready to draw data sets from.
 pub struct Simulator {
+    /// The full (balanced) layout's analysis: what the data sets are drawn from.
     pub analysis: Analysis,
+    /// The layout's own analysis: how the data sets are analysed (the full layout's, or
+    /// the synthesis of the observations a layout with removals keeps).
+    pub fitted: Analysis,
     balanced: Balanced,
     /// Present when the layout has removals.
     kept: Option<Kept>,
@@ -231,7 +233,10 @@ impl Simulator {
                 "simulate draws data from the planning values: add a [prior] table with at least `residual`, the standard deviation within cells (see docs/planning.md)",
             ));
         }
-        let analysis = Analysis::new(layout)?;
+        let mut full = layout.clone();
+        full.removed.clear();
+        let analysis = Analysis::new(&full)?;
+        let fitted = Analysis::new(layout)?;
         let model = &analysis.model;
         let balanced = Balanced::new(model, &layout.levels)?;
         let lv: Vec<usize> = balanced.levels().to_vec();
@@ -387,28 +392,29 @@ impl Simulator {
         }
         let sigma = plan.priors.get(&REPLICATE).copied().unwrap_or(0.0);
 
-        let (tests, expected, df, kept) = if layout.is_balanced() {
-            let tests = analysis
-                .tests
-                .iter()
-                .enumerate()
-                .filter_map(|(t, e)| {
-                    let e = e.as_ref()?;
-                    let weights: Vec<(usize, f64)> =
-                        e.denominator.iter().map(|(v, w)| (*v, to_f64(w))).collect();
-                    planned_test(t, e.verdict, &weights, &analysis.df, plan.alpha, own[t])
-                })
-                .collect();
-            let expected = ems_values(model, &analysis.ems, plan, &layout.levels);
-            (tests, expected, analysis.df.clone(), None)
-        } else {
-            let (kept, tests, expected) =
-                Kept::new(layout, plan, &balanced, &fixed, &fixed_sum, &own)?;
-            let df = kept.analysis.fit.df.clone();
-            (tests, expected, df, Some(kept))
+        let df = fitted.df.clone();
+        let tests: Vec<PlannedTest> = fitted
+            .tests
+            .iter()
+            .enumerate()
+            .filter_map(|(t, e)| {
+                let e = e.as_ref()?;
+                let weights: Vec<(usize, f64)> =
+                    e.denominator.iter().map(|(v, w)| (*v, w.value())).collect();
+                planned_test(t, e.verdict, &weights, &df, plan.alpha, own[t])
+            })
+            .collect();
+        let (expected, kept) = match &fitted.synthesis {
+            None => (fitted.ems_values(plan), None),
+            Some(syn) => {
+                let (kept, expected) =
+                    Kept::new(&fitted, syn, plan, &balanced, &fixed, &fixed_sum, &tests)?;
+                (expected, Some(kept))
+            }
         };
         Ok(Simulator {
             analysis,
+            fitted,
             balanced,
             kept,
             df,
@@ -686,14 +692,16 @@ impl Simulator {
     /// the planned denominator df `df2`; the noncentral F is an approximation unless the
     /// term's mean square is a scaled noncentral chi-square.
     fn pattern_power(&self, test: &PlannedTest, df2: Option<f64>, ss: f64) -> Option<f64> {
-        let lambda = self.noncentrality(test, ss)?;
-        let power = CriticalValue::new(self.alpha, test.df1, df2?).fixed_power(lambda);
+        let den = self.expected_denominator(test);
+        self.noncentrality(test, ss)?;
+        let critical = CriticalValue::new(self.alpha, test.df1, df2?);
+        let power = planning::power(&critical, Kind::Fixed, test.df1, ss.max(0.0) / test.df1, den);
         power.is_finite().then_some(power)
     }
 
     /// Mean squares SS / df of the kept observations `y` into `ms` (NaN for 0 df).
     fn kept_mean_squares(&self, kept: &Kept, y: &[f64], ms: &mut [f64]) {
-        let a = &kept.analysis;
+        let a = &kept.synthesis;
         let ss = a.fit.sums_of_squares(&a.design, y);
         for ((o, s), &df) in ms.iter_mut().zip(&ss).zip(&self.df) {
             *o = if df == 0 { f64::NAN } else { s / df as f64 };
@@ -799,17 +807,17 @@ impl Kept {
     /// simulated model: the synthesis coefficients of the random components times the
     /// priors, plus the exact fixed part SS(μ) / df of the simulated pattern.
     fn new(
-        layout: &Layout,
+        fitted: &Analysis,
+        syn: &Synthesis,
         plan: &PlanningValues,
         balanced: &Balanced,
         fixed: &[Vec<f64>],
         fixed_sum: &[f64],
-        own: &[Own],
-    ) -> Result<(Kept, Vec<PlannedTest>, Vec<f64>), Error> {
-        let analysis = unbalanced::Analysis::new(layout)?;
-        let a = &analysis;
-        let model = &a.design.model;
-        let df = &a.fit.df;
+        tests: &[PlannedTest],
+    ) -> Result<(Kept, Vec<f64>), Error> {
+        let a = syn;
+        let model = &fitted.model;
+        let df = &fitted.df;
         let reps = balanced.replicates();
         let mut at = vec![0usize; balanced.levels().len()];
         let (observation, cell): (Vec<usize>, Vec<usize>) = a
@@ -826,28 +834,17 @@ impl Kept {
             .unzip();
         let mu: Vec<f64> = cell.iter().map(|&c| fixed_sum[c]).collect();
         let fixed_ss = a.fit.sums_of_squares(&a.design, &mu);
-
-        let tests: Vec<PlannedTest> = a
-            .tests
-            .iter()
-            .enumerate()
-            .filter_map(|(t, e)| {
-                let e = e.as_ref()?;
-                planned_test(t, e.verdict, &e.denominator, df, plan.alpha, own[t])
-            })
-            .collect();
-        let theta = component_values(model, plan, &layout.levels);
+        let theta = plan.component_values(model, &fitted.layout.levels);
         let residual = model.residual();
-        let expected = a
+        let expected = fitted
             .ems
-            .rows
             .iter()
             .enumerate()
             .map(|(t, row)| {
                 let random: f64 = row
                     .iter()
                     .filter(|(c, _)| *c == residual || model.kinds[*c] == Kind::Random)
-                    .map(|(c, k)| k * theta[*c])
+                    .map(|(c, k)| k.value() * theta[*c])
                     .sum();
                 let fixed = if df[t] > 0 {
                     fixed_ss[t] / df[t] as f64
@@ -874,13 +871,12 @@ impl Kept {
             .collect();
         Ok((
             Kept {
-                analysis,
+                synthesis: syn.clone(),
                 observation,
                 cell,
                 fixed_ss,
                 null_fixed_ss,
             },
-            tests,
             expected,
         ))
     }
@@ -1224,62 +1220,29 @@ pub fn simulate(
     let df = &sim.df;
     let labels: Vec<String> = model.terms.iter().map(|t| t.label(s)).collect();
     // How every term is tested (verdict, denominator weights), and the planned df and
-    // analytic power: the balanced engine's, or the synthesis's with the power of a fixed
-    // term for the simulated pattern.
+    // analytic power, from the layout's own analysis; for a layout with removals, the
+    // power of a fixed term is that of the simulated pattern.
     type Tested = Option<(Verdict, Vec<(usize, Coefficient)>)>;
+    let fitted = &sim.fitted;
+    let mut plans = fitted.plans(plan);
     // The power `check` gives a fixed term of an unbalanced layout (averaged over patterns).
     let mut averaged: Vec<Option<f64>> = Vec::new();
-    let (plans, tested): (Vec<Option<TestPlan>>, Vec<Tested>) = match &sim.kept {
-        None => (
-            plan_tests(model, &a.ems, &a.df, &a.tests, plan, &layout.levels),
-            a.tests
-                .iter()
-                .map(|e| {
-                    e.as_ref().map(|e| {
-                        let parts = e
-                            .denominator
-                            .iter()
-                            .map(|&(v, w)| (v, Coefficient::Exact(w)));
-                        (e.verdict, parts.collect())
-                    })
-                })
-                .collect(),
-        ),
-        Some(kept) => {
-            let u = &kept.analysis;
-            let mut plans = unbalanced::denominator::plan_tests(
-                &u.design.model,
-                &u.ems,
-                df,
-                &u.tests,
-                plan,
-                layout,
-            );
-            averaged = plans.iter().map(|p| p.and_then(|p| p.power)).collect();
-            for test in &sim.tests {
-                let t = test.term;
-                let with_effect = matches!(test.own, Own::Fixed(_));
-                if let Some(p) = plans[t].as_mut().filter(|_| with_effect) {
-                    p.noncentrality = sim.noncentrality(test, kept.fixed_ss[t]);
-                    p.power = sim.pattern_power(test, p.denominator_df, kept.fixed_ss[t]);
-                }
+    if let Some(kept) = &sim.kept {
+        averaged = plans.iter().map(|p| p.and_then(|p| p.power)).collect();
+        for test in &sim.tests {
+            let t = test.term;
+            let with_effect = matches!(test.own, Own::Fixed(_));
+            if let Some(p) = plans[t].as_mut().filter(|_| with_effect) {
+                p.noncentrality = sim.noncentrality(test, kept.fixed_ss[t]);
+                p.power = sim.pattern_power(test, p.denominator_df, kept.fixed_ss[t]);
             }
-            let tested = u
-                .tests
-                .iter()
-                .map(|e| {
-                    e.as_ref().map(|e| {
-                        let parts = e
-                            .denominator
-                            .iter()
-                            .map(|&(v, w)| (v, Coefficient::Approximate(w)));
-                        (e.verdict, parts.collect())
-                    })
-                })
-                .collect();
-            (plans, tested)
         }
-    };
+    }
+    let tested: Vec<Tested> = fitted
+        .tests
+        .iter()
+        .map(|e| e.as_ref().map(|e| (e.verdict, e.denominator.clone())))
+        .collect();
     let tally = (request.runs > 0).then(|| sim.monte_carlo(request.seed, request.runs));
 
     let terms = model
@@ -1323,6 +1286,7 @@ pub fn simulate(
                     denominator: parts
                         .iter()
                         .map(|&(v, w)| DenominatorPart {
+                            id: model.terms[v].live,
                             term: labels[v].clone(),
                             coefficient: w,
                         })
@@ -1443,7 +1407,7 @@ pub fn simulate(
                 removed_observations: layout.levels.observations() - layout.observations(),
                 removals: layout.removed.iter().map(|r| r.describe(s)).collect(),
                 fit_order: k
-                    .analysis
+                    .synthesis
                     .fit
                     .order
                     .iter()

@@ -227,7 +227,7 @@ fn batches_with_a_lost_sample_sequential() {
     // the sample coefficient in E(MS batch) is not that in E(MS sample(batch)) (the
     // two-stage nested coefficients, e.g. Sokal and Rohlf, Biometry; from memory).
     let batch = report.terms.iter().find(|t| t.label == "batch").unwrap();
-    assert_eq!(batch.test.as_ref().unwrap().verdict, Verdict::Synthetic);
+    assert_eq!(batch.test.as_ref().unwrap().verdict, Verdict::QuasiF);
 }
 
 /// Balanced data give the balanced analysis unchanged, even when rows with a missing

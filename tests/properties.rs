@@ -385,7 +385,7 @@ proptest! {
                     prop_assert!(v != t && df[v] > 0, "{}", &label);
                     prop_assert!(reproduces(&ems, t, &test.denominator), "{}", &label);
                 }
-                Verdict::Synthetic => {
+                Verdict::QuasiF => {
                     prop_assert!(single.is_none(), "{} has an exact test it did not report", &label);
                     prop_assert!(test.denominator.len() >= 2, "{}", &label);
                     for &(v, w) in &test.denominator {

@@ -186,7 +186,7 @@ fn quasi_f_drift_matches_an_independent_monte_carlo() {
     let r = monte_carlo(&layout, &plan, 77, runs);
     let recipe = r.terms.iter().find(|t| t.label == "recipe").unwrap();
     let x = recipe.test.as_ref().unwrap();
-    assert_eq!(x.verdict, emsplan::errorterm::Verdict::Synthetic);
+    assert_eq!(x.verdict, emsplan::errorterm::Verdict::QuasiF);
     let m = want["draws"].as_f64().unwrap();
     let n = runs as f64;
     let within = |ours: f64, theirs: f64, what: &str| {

@@ -143,7 +143,7 @@ fn three_random_factors_need_a_synthetic_denominator() {
     for convention in [Convention::Restricted, Convention::Unrestricted] {
         let r = run(THREE_RANDOM, convention);
         let (verdict, den, ddf) = test_of(&r, "operator");
-        assert_eq!(verdict, Verdict::Synthetic);
+        assert_eq!(verdict, Verdict::QuasiF);
         let want: BTreeMap<String, f64> = [
             ("operator x gauge", 1.0),
             ("operator x part", 1.0),

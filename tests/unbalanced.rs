@@ -343,7 +343,7 @@ fn two_stage_nested_coefficients_are_sokal_and_rohlfs() {
     assert!(close(coefficient(&a, &l, "farm", "residual"), 1.0));
     // farm is tested over (n₀'/n₀) MS[pen(farm)] + (1 - n₀'/n₀) MS[residual].
     let test = a.tests[0].as_ref().unwrap();
-    assert_eq!(test.verdict, Verdict::Synthetic);
+    assert_eq!(test.verdict, Verdict::QuasiF);
     let w: Vec<f64> = test.denominator.iter().map(|d| d.1).collect();
     assert_eq!(test.denominator.len(), 2);
     assert!(close(w[0], n0p / n0), "{w:?}");

@@ -41,12 +41,13 @@ use serde::Serialize;
 mod unbalanced;
 
 use crate::balanced::{Balanced, cell_summaries, index_in};
-use crate::check::{Analysis, DenominatorPart, symbol};
+use crate::engine::{Analysis, Coefficient};
+use crate::findings::DenominatorPart;
 use crate::dist;
 use crate::error::Error;
 use crate::errorterm::Verdict;
 use crate::layout::{Convention, Kind, Layout, SumsOfSquares};
-use crate::planning::{satterthwaite, to_f64};
+use crate::planning::satterthwaite;
 use crate::term::Mask;
 
 /// Observations read from a data file, in cell order.
@@ -153,8 +154,9 @@ pub struct AnovaTest {
 #[derive(Debug, Clone, Serialize)]
 pub struct ComponentEstimate {
     pub term: String,
-    /// σ²(term) in the trade's notation.
-    pub symbol: String,
+    #[serde(skip)]
+    pub short_label: String,
+    pub residual: bool,
     /// Method-of-moments estimate of the variance; null when not estimable.
     pub estimate: Option<f64>,
     /// Its square root when it is not negative.
@@ -610,32 +612,52 @@ pub fn anova_numbers(b: &Balanced, y: &[f64]) -> (Vec<f64>, Vec<f64>, f64) {
     (ss, ms, centre)
 }
 
-/// Method-of-moments estimates of every component (see the module notes): `None` where
-/// a mean square the solution needs does not exist.
+/// Coefficients smaller than this (relative to the row's largest) count as zero when
+/// deciding which moment equations can be used.
+const ZERO: f64 = 1e-9;
+
+/// Method-of-moments estimates of the random components (see the module notes): the
+/// square system MS_t = Σ_u c_tu θ_u over the random terms (and the residual) whose
+/// equations hold only components that have equations of their own, solved by LU. In a
+/// balanced layout the system is triangular and this is the classical back-substitution;
+/// with sequential sums of squares fitted fixed terms first it is Henderson's method III
+/// (citation from memory). `None` where a mean square the solution needs does not exist.
 pub fn moment_estimates(a: &Analysis, ms: &[f64]) -> Vec<Option<f64>> {
-    let terms = &a.model.terms;
-    let mut order: Vec<usize> = (0..terms.len()).collect();
-    order.sort_by_key(|&t| std::cmp::Reverse(terms[t].subscripts().count_ones()));
-    let mut theta: Vec<Option<f64>> = vec![None; terms.len()];
-    for t in order {
-        if a.df[t] == 0 || !ms[t].is_finite() {
-            continue;
+    let model = &a.model;
+    let n = model.terms.len();
+    let residual = model.residual();
+    let random = |t: usize| t == residual || model.kinds[t] == Kind::Random;
+    let mut usable: Vec<usize> = (0..n)
+        .filter(|&t| random(t) && a.df[t] > 0 && !a.ems[t].is_empty() && ms[t].is_finite())
+        .collect();
+    // An equation is usable when every component in it has an equation of its own (and it
+    // holds no fixed component).
+    loop {
+        let before = usable.len();
+        let inside = usable.clone();
+        usable.retain(|&t| {
+            let largest = a.ems[t].iter().fold(0.0f64, |m, (_, x)| m.max(x.value().abs()));
+            a.ems[t]
+                .iter()
+                .filter(|(_, x)| x.value().abs() > ZERO * largest)
+                .all(|(c, _)| inside.contains(c))
+        });
+        if usable.len() == before {
+            break;
         }
-        let mut rest = ms[t];
-        let mut own = 0.0;
-        let mut ok = true;
-        for (u, c) in &a.ems.rows[t] {
-            if *u == t {
-                own = to_f64(c);
-            } else {
-                match theta[*u] {
-                    Some(v) => rest -= to_f64(c) * v,
-                    None => ok = false,
-                }
+    }
+    let mut theta = vec![None; n];
+    if usable.is_empty() {
+        return theta;
+    }
+    let k = usable.len();
+    let c = nalgebra::DMatrix::from_fn(k, k, |i, j| a.coefficient(usable[i], usable[j]));
+    let b = nalgebra::DVector::from_fn(k, |i, _| ms[usable[i]]);
+    if let Some(x) = c.lu().solve(&b) {
+        for (i, &t) in usable.iter().enumerate() {
+            if x[i].is_finite() {
+                theta[t] = Some(x[i]);
             }
-        }
-        if ok && own > 0.0 {
-            theta[t] = Some(rest / own);
         }
     }
     theta
@@ -648,13 +670,15 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
     if !data.is_balanced(layout.levels.replicates as usize) {
         return unbalanced::analyze(layout, data, alpha);
     }
-    let a = Analysis::new(layout)?;
+    let mut full = layout.clone();
+    full.removed.clear();
+    let a = Analysis::new(&full)?;
     let s = &layout.structure;
     let b = Balanced::new(&a.model, &layout.levels)?;
     let (ss, ms, grand_mean) = anova_numbers(&b, &data.y);
     let labels: Vec<String> = a.model.terms.iter().map(|t| t.label(s)).collect();
     let mut notes = data_notes(data);
-    if !layout.is_balanced() {
+    if !layout.removed.is_empty() {
         notes.push(format!(
             "the layout removes {} but the data hold every observation of the full layout: they are analysed as the balanced data they are",
             plural(layout.removed.len(), "cell or observation", "cells or observations")
@@ -669,15 +693,8 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
         .map(|(t, term)| {
             let test = a.tests[t].as_ref().map(|e| {
                 let parts: Vec<(usize, f64)> =
-                    e.denominator.iter().map(|(v, w)| (*v, to_f64(w))).collect();
-                let denominator = e
-                    .denominator
-                    .iter()
-                    .map(|&(v, w)| DenominatorPart {
-                        term: labels[v].clone(),
-                        coefficient: crate::check::Coefficient::Exact(w),
-                    })
-                    .collect();
+                    e.denominator.iter().map(|(v, w)| (*v, w.value())).collect();
+                let denominator = denominator_parts(&a, &e.denominator);
                 planned_test(
                     e.verdict,
                     denominator,
@@ -717,6 +734,19 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
         means,
         notes,
     })
+}
+
+/// A test's denominator with the terms named.
+pub(crate) fn denominator_parts(a: &Analysis, parts: &[(usize, Coefficient)]) -> Vec<DenominatorPart> {
+    let s = &a.layout.structure;
+    parts
+        .iter()
+        .map(|&(v, coefficient)| DenominatorPart {
+            id: a.model.terms[v].live,
+            term: a.model.terms[v].label(s),
+            coefficient,
+        })
+        .collect()
 }
 
 /// Notes on what was read: rows left out for a missing response.
@@ -804,10 +834,9 @@ pub(crate) fn planned_test(
         if let Some(df2) = df2 {
             out.p = Some(dist::f_sf(f, x.df[t] as f64, df2));
         }
-    } else if verdict == Verdict::Synthetic {
+    } else if verdict == Verdict::QuasiF {
         notes.push(format!(
-            "{label}: the synthetic denominator is {} for these data (a combination of mean squares with negative weights), so there is no quasi-F; the terms it subtracts are large next to those it adds",
-            crate::render::num(d)
+            "{label}: the combined denominator is {d:.4} for these data (a combination of mean squares with negative weights), so there is no quasi-F; the terms it subtracts are large next to those it adds"
         ));
     } else {
         notes.push(format!(
@@ -831,7 +860,8 @@ pub(crate) fn component_estimates(
             let negative = estimate.is_some_and(|v| v < 0.0);
             ComponentEstimate {
                 term: labels[t].clone(),
-                symbol: symbol(model, t),
+                short_label: model.terms[t].short_label(&model.structure),
+                residual: model.terms[t].is_residual(),
                 estimate,
                 sd: estimate.filter(|v| *v >= 0.0).map(f64::sqrt),
                 negative,

@@ -20,37 +20,38 @@
 //! Means are the raw means of the observations present, with their counts: with unequal
 //! counts they are not the least-squares (adjusted) means, and a note says so.
 
-use nalgebra::{DMatrix, DVector};
 
 use super::{
     AnalyzeReport, AnovaRow, Imbalance, MeanRow, MeansTable, Numbers, Observations,
     component_estimates, describe, planned_test,
 };
 use crate::balanced::{Balanced, index_in};
-use crate::check::{Coefficient, DenominatorPart};
+use crate::engine::Analysis;
 use crate::ems::Model;
 use crate::error::Error;
 use crate::layout::{Convention, Kind, Layout};
-use crate::unbalanced::fit::SynthesisEms;
 use crate::unbalanced::removal::{self, Removal};
 
-/// Coefficients smaller than this (relative to the row's largest) count as zero when
-/// deciding which moment equations can be used.
-const ZERO: f64 = 1e-9;
 
 pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<AnalyzeReport, Error> {
     let s = &layout.structure;
     let r = layout.levels.replicates as usize;
     let shape = Balanced::new(&Model::new(s), &layout.levels)?;
     let shaped = data_layout(layout, data, &shape)?;
-    let a = crate::unbalanced::Analysis::new(&shaped)?;
-    let model = &a.design.model;
+    let a = Analysis::new(&shaped)?;
+    let Some(syn) = &a.synthesis else {
+        return Err(Error::invalid(
+            None,
+            "the data hold every observation of the layout: they are balanced",
+        ));
+    };
+    let model = &a.model;
     let labels: Vec<String> = model.terms.iter().map(|t| t.label(s)).collect();
 
     // The responses in the design's order: by cell, then the cell's observations as read
     // (the removals take a cell's last replicates, so the kept ones are the first).
     let offsets = data.offsets();
-    let y: Vec<f64> = a
+    let y: Vec<f64> = syn
         .design
         .observations()
         .iter()
@@ -59,8 +60,8 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
             data.y[offsets[shape.cell(&at)] + o.replicate as usize]
         })
         .collect();
-    let ss = a.fit.sums_of_squares(&a.design, &y);
-    let df = &a.fit.df;
+    let ss = syn.fit.sums_of_squares(&syn.design, &y);
+    let df = &a.df;
     let ms: Vec<f64> = ss
         .iter()
         .zip(df)
@@ -73,7 +74,7 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
         notes.push("the layout's restricted convention is defined for balanced data only; these unbalanced data are analysed under the unrestricted model".into());
     }
     notes.extend(lost_units(layout, data, &shape));
-    if !layout.is_balanced() {
+    if !layout.removed.is_empty() {
         let declared = removal::cell_counts(layout);
         if let Some(c) = (0..declared.len()).find(|&c| data.counts[c] as u64 > declared[c]) {
             let mut at = vec![0usize; s.factors.len()];
@@ -91,18 +92,13 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
         .enumerate()
         .map(|(t, term)| {
             let test = a.tests[t].as_ref().map(|e| {
-                let denominator = e
-                    .denominator
-                    .iter()
-                    .map(|&(v, w)| DenominatorPart {
-                        term: labels[v].clone(),
-                        coefficient: Coefficient::Approximate(w),
-                    })
-                    .collect();
+                let denominator = super::denominator_parts(&a, &e.denominator);
+                let parts: Vec<(usize, f64)> =
+                    e.denominator.iter().map(|(v, w)| (*v, w.value())).collect();
                 planned_test(
                     e.verdict,
                     denominator,
-                    &e.denominator,
+                    &parts,
                     Numbers { ms: &ms, df },
                     t,
                     &labels[t],
@@ -131,7 +127,7 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
         notes.push("with unbalanced data the mean squares are not independent scaled chi-squares, so a test over anything but the residual is approximate even when its error term matches exactly: read its p as a guide".into());
     }
 
-    let theta = moment_estimates(model, &a.ems, df, &ms);
+    let theta = super::moment_estimates(&a, &ms);
     let components = component_estimates(model, &labels, &theta, &mut notes);
     let means = raw_means(layout, model, data, &shape);
     if !means.is_empty() {
@@ -159,7 +155,7 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
             empty_cells,
             lost_observations: lost,
             sums_of_squares: shaped.sums_of_squares,
-            fit_order: a.fit.order.iter().map(|&t| labels[t].clone()).collect(),
+            fit_order: syn.fit.order.iter().map(|&t| labels[t].clone()).collect(),
         }),
         terms,
         components,
@@ -297,48 +293,6 @@ fn lost_units(layout: &Layout, data: &Observations, shape: &Balanced) -> Vec<Str
         text.push_str(&format!("; and {more} more"));
     }
     vec![text]
-}
-
-/// Method-of-moments estimates from the synthesised expected mean squares (see the module
-/// notes): `None` for a component no usable equation determines.
-fn moment_estimates(model: &Model, ems: &SynthesisEms, df: &[u64], ms: &[f64]) -> Vec<Option<f64>> {
-    let n = model.terms.len();
-    let residual = model.residual();
-    let random = |t: usize| t == residual || model.kinds[t] == Kind::Random;
-    let mut usable: Vec<usize> = (0..n)
-        .filter(|&t| random(t) && df[t] > 0 && !ems.rows[t].is_empty() && ms[t].is_finite())
-        .collect();
-    // An equation is usable when every component in it has an equation of its own (and it
-    // holds no fixed component).
-    loop {
-        let before = usable.len();
-        let inside = usable.clone();
-        usable.retain(|&t| {
-            let largest = ems.rows[t].iter().fold(0.0f64, |m, (_, x)| m.max(x.abs()));
-            ems.rows[t]
-                .iter()
-                .filter(|(_, x)| x.abs() > ZERO * largest)
-                .all(|(c, _)| inside.contains(c))
-        });
-        if usable.len() == before {
-            break;
-        }
-    }
-    let mut theta = vec![None; n];
-    if usable.is_empty() {
-        return theta;
-    }
-    let k = usable.len();
-    let c = DMatrix::from_fn(k, k, |i, j| ems.coefficient(usable[i], usable[j]));
-    let b = DVector::from_fn(k, |i, _| ms[usable[i]]);
-    if let Some(x) = c.lu().solve(&b) {
-        for (i, &t) in usable.iter().enumerate() {
-            if x[i].is_finite() {
-                theta[t] = Some(x[i]);
-            }
-        }
-    }
-    theta
 }
 
 /// Raw means of every fixed term's cells that hold observations, with their counts.

@@ -43,15 +43,7 @@ fn over(row: &AnovaRow) -> String {
     match &row.test {
         None => "-".into(),
         Some(t) => match t.verdict {
-            Verdict::Exact => t.denominator[0].term.clone(),
-            Verdict::Synthetic => {
-                let parts: Vec<(String, crate::check::Coefficient)> = t
-                    .denominator
-                    .iter()
-                    .map(|d| (d.term.clone(), d.coefficient))
-                    .collect();
-                crate::check::denominator_words(&parts)
-            }
+            Verdict::Exact | Verdict::QuasiF => super::words::denominator(&t.denominator),
             Verdict::Untestable => "none (untestable)".into(),
             Verdict::NotEstimable => "none (0 df)".into(),
         },
@@ -75,7 +67,7 @@ fn rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
         .map(|row| {
             let t = row.test.as_ref();
             let f = t.and_then(|t| t.f);
-            let quasi = t.is_some_and(|t| t.verdict == Verdict::Synthetic);
+            let quasi = t.is_some_and(|t| t.verdict == Verdict::QuasiF);
             vec![
                 row.label.clone(),
                 row.df.to_string(),
@@ -134,7 +126,7 @@ fn csv_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
                 } else {
                     String::new()
                 },
-                t.map_or(String::new(), |t| t.verdict.name().into()),
+                t.map_or(String::new(), |t| super::check::code(t.verdict)),
                 plain(t.and_then(|t| t.f)),
                 plain(t.and_then(|t| t.denominator_df)),
                 plain(t.and_then(|t| t.p)),
@@ -156,7 +148,7 @@ fn component_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
         .iter()
         .map(|c| {
             vec![
-                c.symbol.clone(),
+                super::words::symbol(crate::layout::Kind::Random, c.residual, &c.short_label),
                 c.term.clone(),
                 opt(c.estimate, sig),
                 opt(c.sd, sig),
@@ -190,7 +182,7 @@ fn explanations(r: &AnalyzeReport) -> Vec<String> {
     if r.terms.iter().any(|t| {
         t.test
             .as_ref()
-            .is_some_and(|x| x.verdict == Verdict::Synthetic)
+            .is_some_and(|x| x.verdict == Verdict::QuasiF)
     }) {
         out.push("A quasi-F divides by a combination of mean squares; its den. df are Satterthwaite's (1946) approximation from these mean squares, so its p is approximate.".into());
     }

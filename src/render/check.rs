@@ -1,56 +1,15 @@
 //! Rendering of `check` results.
 
-use serde::Serialize;
-
+use super::words::{self, CAUTION, LEGEND, ems as ems_text, tested_over};
 use super::{Format, csv_table, json, markdown_table, num, text_table};
-use crate::check::denominator_words;
-use crate::check::{CheckReport, TermReport, TestReport};
 use crate::errorterm::Verdict;
-use crate::layout::Kind;
-
-/// E(MS) in the trade's notation: `σ² + 6σ²(bench) + 24κ²(light)`.
-pub fn ems_text(term: &TermReport) -> String {
-    term.ems
-        .iter()
-        .map(|c| {
-            if c.coefficient.is_one() {
-                c.symbol.clone()
-            } else {
-                format!("{}{}", c.coefficient.text(), c.symbol)
-            }
-        })
-        .collect::<Vec<_>>()
-        .join(" + ")
-}
-
-/// What a term is tested over: a term label, a combination of mean squares, or a dash.
-pub fn tested_over(test: &TestReport) -> String {
-    match test.verdict {
-        Verdict::Exact => test.denominator[0].term.clone(),
-        Verdict::Synthetic => {
-            let parts: Vec<(String, crate::check::Coefficient)> = test
-                .denominator
-                .iter()
-                .map(|d| (d.term.clone(), d.coefficient))
-                .collect();
-            denominator_words(&parts)
-        }
-        Verdict::Untestable | Verdict::NotEstimable => "none".into(),
-    }
-}
+use crate::findings::{BothReport, CheckReport, TermReport, TestReport};
 
 fn den_df(test: &TestReport) -> String {
     match test.denominator_df {
         Some(df) => num(df),
-        None if test.verdict == Verdict::Synthetic => "needs priors".into(),
+        None if test.verdict == Verdict::QuasiF => "needs priors".into(),
         None => "-".into(),
-    }
-}
-
-fn kind(k: Kind) -> &'static str {
-    match k {
-        Kind::Fixed => "fixed",
-        Kind::Random => "random",
     }
 }
 
@@ -76,13 +35,8 @@ const PLAN_HEADER: [&str; 9] = [
     "min. effect",
 ];
 
-/// Whether the report carries power figures (the layout had planning values).
 fn planned(report: &CheckReport) -> bool {
-    report.terms.iter().any(|t| {
-        t.test
-            .as_ref()
-            .is_some_and(|x| x.min_detectable.is_some() || x.power.is_some())
-    })
+    report.planned()
 }
 
 fn header(report: &CheckReport) -> &'static [&'static str] {
@@ -107,13 +61,13 @@ fn rows(report: &CheckReport) -> Vec<Vec<String>> {
                 Some(test) => (
                     tested_over(test),
                     den_df(test),
-                    test.verdict.name().to_string(),
+                    words::verdict(test.verdict).to_string(),
                 ),
                 None => ("-".into(), "-".into(), "-".into()),
             };
             let mut row = vec![
                 t.label.clone(),
-                kind(t.kind).into(),
+                words::kind(t.kind).into(),
                 t.df.to_string(),
                 ems_text(t),
                 over,
@@ -122,11 +76,65 @@ fn rows(report: &CheckReport) -> Vec<Vec<String>> {
             ];
             if with_plan {
                 row.push(opt(t.test.as_ref().and_then(|x| x.power)));
-                row.push(opt(t.test.as_ref().and_then(|x| x.min_detectable)));
+                row.push(
+                    t.test
+                        .as_ref()
+                        .and_then(|x| x.min_detectable)
+                        .map_or("-".into(), num),
+                );
             }
             row
         })
         .collect()
+}
+
+const CSV_HEADER: [&str; 9] = [
+    "term",
+    "kind",
+    "df",
+    "expected_mean_square",
+    "tested_over",
+    "denominator_df",
+    "verdict",
+    "power",
+    "min_detectable",
+];
+
+/// A number at full precision for CSV; an empty field when missing.
+fn full(x: Option<f64>) -> String {
+    x.filter(|v| v.is_finite())
+        .map_or(String::new(), |v| v.to_string())
+}
+
+/// Tidy rows: one per term, codes for verdicts, full-precision numbers, empty fields.
+fn csv_rows(report: &CheckReport) -> Vec<Vec<String>> {
+    report
+        .terms
+        .iter()
+        .map(|t| {
+            let test = t.test.as_ref();
+            vec![
+                t.label.clone(),
+                words::kind(t.kind).into(),
+                t.df.to_string(),
+                ems_text(t),
+                test.filter(|x| x.verdict.is_testable())
+                    .map_or(String::new(), tested_over),
+                full(test.and_then(|x| x.denominator_df)),
+                test.map_or(String::new(), |x| code(x.verdict)),
+                full(test.and_then(|x| x.power)),
+                full(test.and_then(|x| x.min_detectable)),
+            ]
+        })
+        .collect()
+}
+
+/// A verdict as the JSON spells it, for machine-read formats.
+pub fn code(v: Verdict) -> String {
+    serde_json::to_value(v)
+        .ok()
+        .and_then(|j| j.as_str().map(str::to_string))
+        .unwrap_or_default()
 }
 
 /// The cost breakdown, one line per priced term.
@@ -140,7 +148,7 @@ fn cost_text(report: &CheckReport) -> Option<String> {
     for line in &cost.breakdown {
         parts.push(format!(
             "{} {} x {} = {}",
-            line.term,
+            line.label,
             line.units,
             num(line.per_unit),
             num(line.cost)
@@ -153,9 +161,6 @@ fn cost_text(report: &CheckReport) -> Option<String> {
     Some(out)
 }
 
-/// The caution that goes wherever users decide on power.
-pub const CAUTION: &str = "Power and minimum detectable effects rest on the planning values, which are guesses: they are only as good as those guesses. Have a statistician review designs that carry real cost or risk.";
-
 fn planning_text(report: &CheckReport, bullet: &str) -> String {
     let mut out = String::new();
     if planned(report) {
@@ -164,7 +169,7 @@ fn planning_text(report: &CheckReport, bullet: &str) -> String {
             report.alpha, report.target_power
         ));
     }
-    for n in &report.planning_notes {
+    for n in words::planning_notes(&report.planning_gaps) {
         out.push_str(&format!("{bullet}{n}\n"));
     }
     if let Some(c) = cost_text(report) {
@@ -181,20 +186,8 @@ fn unbalanced_text(report: &CheckReport, bullet: &str) -> String {
     let Some(u) = &report.unbalanced else {
         return String::new();
     };
-    let what = match u.sums_of_squares {
-        crate::layout::SumsOfSquares::Sequential => format!(
-            "sequential sums of squares, fitted in the order {}",
-            u.fit_order.join(", ")
-        ),
-        crate::layout::SumsOfSquares::Type3 => "type III sums of squares".to_string(),
-    };
-    let mut out = format!(
-        "\nUnbalanced: {} of the full layout's {} observations removed ({}); {what}.\n",
-        u.removed_observations,
-        u.full_observations,
-        u.removals.join("; ")
-    );
-    for n in &u.notes {
+    let mut out = format!("\n{}\n", words::unbalanced_line(u));
+    for n in words::unbalanced_notes(u) {
         out.push_str(&format!("{bullet}{n}\n"));
     }
     out
@@ -203,7 +196,7 @@ fn unbalanced_text(report: &CheckReport, bullet: &str) -> String {
 pub fn render(report: &CheckReport, format: Format) -> String {
     match format {
         Format::Json => json(report),
-        Format::Csv => csv_table(header(report), rows(report)),
+        Format::Csv => csv_table(&CSV_HEADER, csv_rows(report)),
         Format::Markdown => {
             let mut out = format!(
                 "## {}\n\n{} convention, {} observations.\n\n",
@@ -212,11 +205,13 @@ pub fn render(report: &CheckReport, format: Format) -> String {
                 report.observations
             );
             out.push_str(&markdown_table(header(report), rows(report)));
+            out.push_str(&format!("\n{LEGEND}\n"));
             out.push_str(&unbalanced_text(report, "- "));
             out.push_str(&planning_text(report, "- "));
-            if !report.findings.is_empty() {
+            let findings = words::findings(report);
+            if !findings.is_empty() {
                 out.push_str("\n### What needs attention\n\n");
-                for f in &report.findings {
+                for f in &findings {
                     out.push_str(&format!("- {f}\n"));
                 }
             }
@@ -230,13 +225,15 @@ pub fn render(report: &CheckReport, format: Format) -> String {
                 report.observations
             );
             out.push_str(&text_table(header(report), rows(report)));
+            out.push_str(&format!("\n{LEGEND}\n"));
             out.push_str(&unbalanced_text(report, "  note: "));
             out.push_str(&planning_text(report, "  note: "));
-            if report.findings.is_empty() {
+            let findings = words::findings(report);
+            if findings.is_empty() {
                 out.push_str("\nEvery term with df has an exact F test.\n");
             } else {
                 out.push_str("\nWhat needs attention, and why:\n");
-                for f in &report.findings {
+                for f in &findings {
                     out.push_str(&format!("  - {f}\n"));
                 }
             }
@@ -253,32 +250,6 @@ fn title(report: &CheckReport) -> String {
     }
 }
 
-/// Both conventions side by side.
-#[derive(Debug, Serialize)]
-pub struct BothReport {
-    pub restricted: CheckReport,
-    pub unrestricted: CheckReport,
-    /// Terms whose error term differs between the conventions.
-    pub differ: Vec<String>,
-}
-
-impl BothReport {
-    pub fn new(restricted: CheckReport, unrestricted: CheckReport) -> Self {
-        let differ = restricted
-            .terms
-            .iter()
-            .zip(&unrestricted.terms)
-            .filter(|(r, u)| over(r) != over(u))
-            .map(|(r, _)| r.label.clone())
-            .collect();
-        BothReport {
-            restricted,
-            unrestricted,
-            differ,
-        }
-    }
-}
-
 fn over(t: &TermReport) -> String {
     t.test.as_ref().map(tested_over).unwrap_or_default()
 }
@@ -290,7 +261,7 @@ const BOTH_HEADER: [&str; 7] = [
     "tested over (restricted)",
     "E(MS), unrestricted",
     "tested over (unrestricted)",
-    "same test?",
+    "same test",
 ];
 
 fn both_rows(b: &BothReport) -> Vec<Vec<String>> {
@@ -310,7 +281,7 @@ fn both_rows(b: &BothReport) -> Vec<Vec<String>> {
                 if r.residual {
                     "-".into()
                 } else if differs {
-                    "DIFFERS".into()
+                    "differs".into()
                 } else {
                     "same".into()
                 },
@@ -332,7 +303,29 @@ pub fn render_both(b: &BothReport, format: Format) -> String {
     };
     match format {
         Format::Json => json(b),
-        Format::Csv => csv_table(header, rows()),
+        Format::Csv => csv_table(
+            &[
+                "term",
+                "df",
+                "expected_mean_square_restricted",
+                "tested_over_restricted",
+                "expected_mean_square_unrestricted",
+                "tested_over_unrestricted",
+                "same_test",
+            ],
+            both_rows(b)
+                .into_iter()
+                .zip(&b.restricted.terms)
+                .map(|(mut row, t)| {
+                    row[6] = if t.residual {
+                        String::new()
+                    } else {
+                        (!b.differ.contains(&t.label)).to_string()
+                    };
+                    row
+                })
+                .collect(),
+        ),
         Format::Markdown => format!(
             "## {}: both conventions\n\n{}\n{summary}\n",
             title(&b.restricted),

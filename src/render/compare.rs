@@ -1,8 +1,17 @@
 //! Rendering of `compare` results.
 
-use super::check::CAUTION;
+use super::words::CAUTION;
 use super::{Format, csv_table, json, markdown_table, num, text_table};
-use crate::compare::{Comparison, SideTest, Status};
+use crate::compare::{Comparison, SideTest, Status, TermComparison};
+
+/// What a side's term is tested over, in words.
+fn over(t: &SideTest) -> String {
+    if t.denominator.is_empty() {
+        "none".into()
+    } else {
+        super::words::denominator(&t.denominator)
+    }
+}
 
 const HEADER: [&str; 9] = [
     "term",
@@ -26,8 +35,8 @@ fn side(t: &Option<SideTest>) -> [String; 3] {
         Some(t) => [
             match t.verdict {
                 None => "-".into(),
-                Some(v) if v.is_testable() => t.tested_over.clone().unwrap_or_default(),
-                Some(v) => v.name().to_string(),
+                Some(v) if v.is_testable() => over(t),
+                Some(v) => super::words::verdict(v).to_string(),
             },
             t.denominator_df.map_or("-".into(), num),
             opt(t.power),
@@ -41,8 +50,8 @@ fn status(s: Status) -> &'static str {
         Status::Same => "same",
         Status::Weaker => "weaker",
         Status::Stronger => "stronger",
-        Status::Lost => "LOST",
-        Status::Gained => "GAINED",
+        Status::Lost => "lost its test",
+        Status::Gained => "gained a test",
     }
 }
 
@@ -115,22 +124,24 @@ pub fn render(c: &Comparison, format: Format) -> String {
             for n in &c.notes {
                 out.push_str(&format!("{bullet}{n}\n"));
             }
-            for n in &c.other.planning_notes {
-                if !c.base.planning_notes.contains(n) {
+            let base_notes = super::words::planning_notes(&c.base.planning_gaps);
+            for n in super::words::planning_notes(&c.other.planning_gaps) {
+                if !base_notes.contains(&n) {
                     out.push_str(&format!("{bullet}other layout: {n}\n"));
                 }
             }
             if let Some(line) = cost_line(c) {
                 out.push_str(&format!("{line}\n"));
             }
-            out.push_str(&format!("\n{}\n", c.verdict));
-            if !c.other.findings.is_empty() {
+            out.push_str(&format!("\n{}\n", verdict_text(c)));
+            let findings = super::words::findings(&c.other);
+            if !findings.is_empty() {
                 out.push_str(if md {
                     "\n### What needs attention in the other layout\n\n"
                 } else {
                     "\nWhat needs attention in the other layout:\n"
                 });
-                for f in &c.other.findings {
+                for f in &findings {
                     out.push_str(&format!("{}{f}\n", if md { "- " } else { "  - " }));
                 }
             }
@@ -146,4 +157,118 @@ fn name(n: &str, fallback: &str) -> String {
     } else {
         n.to_string()
     }
+}
+
+fn df_text(x: Option<f64>) -> String {
+    x.map_or("unknown".into(), num)
+}
+
+/// The one-paragraph verdict: what the change costs or saves, what stays testable, and
+/// what gets weaker or stronger among the terms the goal covers.
+pub fn verdict_text(c: &Comparison) -> String {
+    let (changes, terms, cost) = (&c.changes, &c.terms, &c.cost);
+    let what = if changes.is_empty() {
+        "The other layout".to_string()
+    } else {
+        format!("The change ({})", changes.join(", "))
+    };
+    let money = match cost.difference {
+        Some(d) if d < 0.0 => format!("saves {}", num(-d)),
+        Some(d) if d > 0.0 => format!("costs {} more", num(d)),
+        Some(_) => "costs the same".into(),
+        None => "has no price (no [cost] table)".into(),
+    };
+    let focus: Vec<&TermComparison> = terms.iter().filter(|t| t.must_test).collect();
+    let testable = crate::compare::testable;
+    let lost: Vec<&str> = focus
+        .iter()
+        .filter(|t| t.status == Status::Lost)
+        .map(|t| t.label.as_str())
+        .collect();
+    let gained: Vec<&str> = focus
+        .iter()
+        .filter(|t| t.status == Status::Gained)
+        .map(|t| t.label.as_str())
+        .collect();
+    let all_testable = focus.iter().all(|t| testable(&t.other));
+    let mut sentence = format!("{what} {money}");
+    if lost.is_empty() {
+        if all_testable {
+            sentence.push_str(" and keeps every term that matters testable");
+        } else {
+            sentence.push_str(" and loses no test");
+        }
+    } else {
+        sentence.push_str(&format!(
+            ", but {} can no longer be tested",
+            lost.join(", ")
+        ));
+    }
+    if !gained.is_empty() {
+        sentence.push_str(&format!("; {} becomes testable", gained.join(", ")));
+    }
+    let change_of = |t: &TermComparison| -> Option<String> {
+        let (b, o) = (t.base.as_ref()?, t.other.as_ref()?);
+        let mut parts = Vec::new();
+        if b.denominator_df != o.denominator_df {
+            parts.push(format!(
+                "denominator df from {} to {}",
+                df_text(b.denominator_df),
+                df_text(o.denominator_df)
+            ));
+        }
+        if let (Some(x), Some(y)) = (b.power, o.power)
+            && (x - y).abs() > 0.005
+        {
+            parts.push(format!("power from {x:.2} to {y:.2}"));
+        }
+        if t.error_term_changed {
+            parts.push(format!(
+                "error term {} instead of {}",
+                over(o),
+                over(b)
+            ));
+        }
+        (!parts.is_empty()).then(|| parts.join(", "))
+    };
+    let weaker: Vec<String> = focus
+        .iter()
+        .filter(|t| t.status == Status::Weaker)
+        .filter_map(|t| change_of(t).map(|c| format!("the {} test gets weaker ({c})", t.label)))
+        .collect();
+    let stronger: Vec<String> = focus
+        .iter()
+        .filter(|t| t.status == Status::Stronger)
+        .filter_map(|t| change_of(t).map(|c| format!("the {} test gets stronger ({c})", t.label)))
+        .collect();
+    let moved: Vec<String> = focus
+        .iter()
+        .filter(|t| {
+            t.status == Status::Same
+                && t.error_term_changed
+                && testable(&t.base)
+                && testable(&t.other)
+        })
+        .filter_map(|t| {
+            let (b, o) = (t.base.as_ref()?, t.other.as_ref()?);
+            Some(format!(
+                "{} is tested over {} instead of {}",
+                t.label,
+                over(o),
+                over(b)
+            ))
+        })
+        .collect();
+    if !weaker.is_empty() {
+        sentence.push_str(&format!(", but {}", weaker.join("; ")));
+    }
+    if !stronger.is_empty() {
+        let joiner = if weaker.is_empty() { ", and " } else { "; " };
+        sentence.push_str(&format!("{joiner}{}", stronger.join("; ")));
+    }
+    if !moved.is_empty() {
+        sentence.push_str(&format!("; {}", moved.join("; ")));
+    }
+    sentence.push('.');
+    sentence
 }

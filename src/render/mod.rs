@@ -7,6 +7,8 @@ pub mod compare;
 pub mod report;
 pub mod search;
 pub mod simulate;
+pub mod svg;
+pub mod words;
 
 use comfy_table::{Table, presets};
 

@@ -3,11 +3,15 @@
 
 use std::fmt::Write;
 
-use super::check::{CAUTION, ems_text, tested_over};
 use super::num;
-use crate::layout::Convention;
+use super::svg::{self, esc};
+use super::words::{self, CAUTION, ems as ems_text, tested_over};
+use crate::findings::TestReport;
+use crate::goal::Goal;
+use crate::layout::{Convention, Kind, Layout};
+use crate::planning::{Effect, PlanningValues};
 use crate::report::Report;
-use crate::report::svg::esc;
+use crate::term::REPLICATE;
 
 fn convention_note(c: Convention) -> &'static str {
     match c {
@@ -25,7 +29,7 @@ const UNBALANCED_CONVENTION: &str = "The layout is unbalanced, and only the unre
 
 /// What was removed from the full layout and which sums of squares the expected mean
 /// squares are of.
-fn unbalanced_sentence(u: &crate::unbalanced::report::Summary) -> String {
+fn unbalanced_sentence(u: &crate::findings::Summary) -> String {
     let what = match u.sums_of_squares {
         crate::layout::SumsOfSquares::Sequential => format!(
             "the expected mean squares are those of sequential sums of squares, the terms fitted in the order {}",
@@ -59,7 +63,8 @@ th{font-weight:bold}td.n{text-align:right}figure{margin:0.8em 0;page-break-insid
 @page{size:A4;margin:18mm}@media print{body{max-width:none;margin:0}h2{page-break-after:avoid}table{page-break-inside:avoid}}";
 
 /// The report as one HTML file.
-pub fn html(r: &Report) -> String {
+pub fn html(report: &Report) -> String {
+    let r = &view(report);
     let mut h = String::new();
     let _ = write!(
         h,
@@ -115,7 +120,7 @@ pub fn html(r: &Report) -> String {
                     "none".into()
                 },
                 df_opt(x.denominator_df),
-                x.verdict.name().to_string(),
+                words::verdict(x.verdict).to_string(),
             ),
             None => ("-".into(), "-".into(), "-".into()),
         };
@@ -138,9 +143,10 @@ pub fn html(r: &Report) -> String {
     h.push_str("</table>\n");
     if let Some(u) = &r.check.unbalanced {
         let _ = writeln!(h, "<p>{}</p>", esc(&unbalanced_sentence(u)));
-        if !u.notes.is_empty() {
+        let notes = words::unbalanced_notes(u);
+        if !notes.is_empty() {
             h.push_str("<ul>\n");
-            for n in &u.notes {
+            for n in &notes {
                 let _ = writeln!(h, "<li>{}</li>", esc(n));
             }
             h.push_str("</ul>\n");
@@ -175,9 +181,9 @@ pub fn html(r: &Report) -> String {
             h.push_str("</ul>\n");
         }
     }
-    if !r.check.findings.is_empty() {
+    if !r.findings.is_empty() {
         h.push_str("<h3>What needs attention</h3>\n<ul>\n");
-        for f in &r.check.findings {
+        for f in &r.findings {
             let _ = writeln!(h, "<li>{}</li>", esc(f));
         }
         h.push_str("</ul>\n");
@@ -226,7 +232,7 @@ pub fn html(r: &Report) -> String {
             let _ = writeln!(
                 h,
                 "<tr><td>{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td><td class=\"n\">{}</td></tr>",
-                esc(&l.term),
+                esc(&l.label),
                 l.units,
                 num(l.per_unit),
                 num(l.cost)
@@ -246,7 +252,7 @@ pub fn html(r: &Report) -> String {
         let _ = writeln!(h, "<tr><td>{}</td><td>{}</td></tr>", esc(k), esc(v));
     }
     h.push_str("</table>\n");
-    for n in &r.check.planning_notes {
+    for n in &words::planning_notes(&r.check.planning_gaps) {
         let _ = writeln!(h, "<p>Note: {}</p>", esc(n));
     }
     let _ = writeln!(
@@ -265,7 +271,8 @@ pub fn html(r: &Report) -> String {
 
 /// The report as Markdown. Figures are returned separately as (file name, SVG) for the
 /// caller to write beside the Markdown file; the text links to them by name.
-pub fn markdown(r: &Report, figure_prefix: &str) -> (String, Vec<(String, String)>) {
+pub fn markdown(report: &Report, figure_prefix: &str) -> (String, Vec<(String, String)>) {
+    let r = &view(report);
     let mut m = String::new();
     let mut figures = Vec::new();
     let _ = writeln!(m, "# {}\n\n> **Caution.** {CAUTION}\n", r.title);
@@ -511,11 +518,11 @@ pub fn search_section(s: &crate::search::SearchReport) -> (String, String, Strin
         .filter_map(|c| Some((c.cost, c.smallest_power?)))
         .collect();
     if points.len() >= 2 {
-        let svg = crate::report::svg::chart(
+        let svg = svg::chart(
             "Cost against power: the frontier",
             "cost",
             "smallest power of the must-test terms",
-            &[crate::report::svg::Series {
+            &[svg::Series {
                 label: "Pareto-optimal layouts".into(),
                 points,
                 dash: "",
@@ -565,4 +572,366 @@ pub fn search_section(s: &crate::search::SearchReport) -> (String, String, Strin
         md.push('\n');
     }
     ("The design search".into(), html, md)
+}
+
+/// What the document shows, in words and figures, built from the report job's data.
+struct View<'a> {
+    title: &'a str,
+    version: &'a str,
+    command_line: &'a str,
+    check: &'a crate::findings::CheckReport,
+    other_convention: Option<Convention>,
+    differences: Vec<Difference>,
+    description: Vec<String>,
+    factors: Vec<FactorRow>,
+    diagram: String,
+    key_terms: Vec<KeyTerm>,
+    planning: Vec<(String, String)>,
+    /// (heading, html, markdown) of the search and the Monte Carlo run.
+    sections: Vec<(String, String, String)>,
+    findings: Vec<String>,
+}
+
+struct Difference {
+    label: String,
+    here: String,
+    there: String,
+}
+
+struct FactorRow {
+    name: String,
+    kind: &'static str,
+    levels: u64,
+    within: String,
+    population: Option<u64>,
+}
+
+struct KeyTerm {
+    label: String,
+    verdict: &'static str,
+    tested_over: String,
+    /// Why that error term: the components the two expected mean squares share.
+    why: String,
+    denominator_df: Option<f64>,
+    power: Option<f64>,
+    min_detectable: Option<f64>,
+    /// "root mean square of effects" or "standard deviation".
+    scale: &'static str,
+    curve: Option<String>,
+}
+
+fn over(t: &TestReport) -> String {
+    if t.verdict.is_testable() {
+        tested_over(t)
+    } else {
+        words::verdict(t.verdict).to_string()
+    }
+}
+
+fn view(r: &Report) -> View<'_> {
+    let layout = &r.layout;
+    let s = &layout.structure;
+    let factors: Vec<FactorRow> = s
+        .factors
+        .iter()
+        .enumerate()
+        .map(|(i, f)| FactorRow {
+            name: f.name.clone(),
+            kind: kind_name(f.kind),
+            levels: layout.levels.per_factor[i],
+            within: names(layout, f.within),
+            population: f.population,
+        })
+        .collect();
+    let nodes: Vec<svg::Node> = s
+        .factors
+        .iter()
+        .enumerate()
+        .map(|(i, f)| svg::Node {
+            name: f.name.clone(),
+            detail: format!(
+                "{}, {} level{}{}",
+                kind_name(f.kind),
+                layout.levels.per_factor[i],
+                if layout.levels.per_factor[i] == 1 {
+                    ""
+                } else {
+                    "s"
+                },
+                if f.within != 0 { " each" } else { "" }
+            ),
+            parents: (0..s.factors.len())
+                .filter(|j| f.within & (1 << j) != 0)
+                .collect(),
+        })
+        .collect();
+    let mut sections = Vec::new();
+    if let Some(found) = &r.search {
+        sections.push(search_section(found));
+    }
+    if let Some(mc) = &r.monte_carlo {
+        sections.push(monte_carlo_section(mc));
+    }
+    View {
+        title: &r.title,
+        version: r.version,
+        command_line: &r.command_line,
+        check: &r.check,
+        other_convention: r.other_convention,
+        differences: r
+            .differences
+            .iter()
+            .map(|d| Difference {
+                label: d.label.clone(),
+                here: over(&d.here),
+                there: over(&d.there),
+            })
+            .collect(),
+        description: describe(layout),
+        factors,
+        diagram: svg::layout_diagram(&nodes, "Nesting and crossing of the factors"),
+        key_terms: r
+            .key_terms
+            .iter()
+            .map(|k| key_term(&r.check, k, r.plan.alpha))
+            .collect(),
+        planning: planning_rows(layout, &r.plan, &r.goal),
+        sections,
+        findings: words::findings(&r.check),
+    }
+}
+
+fn kind_name(k: Kind) -> &'static str {
+    match k {
+        Kind::Fixed => "fixed",
+        Kind::Random => "random",
+    }
+}
+
+fn names(layout: &Layout, mask: u32) -> String {
+    layout
+        .structure
+        .factors
+        .iter()
+        .enumerate()
+        .filter(|(i, _)| mask & (1 << i) != 0)
+        .map(|(_, f)| f.name.as_str())
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// The layout in words: one sentence per factor, then the replication.
+fn describe(layout: &Layout) -> Vec<String> {
+    let s = &layout.structure;
+    let mut out: Vec<String> = s
+        .factors
+        .iter()
+        .enumerate()
+        .map(|(i, f)| {
+            let n = layout.levels.per_factor[i];
+            let what = match f.kind {
+                Kind::Fixed => "a fixed factor (its levels are the ones compared)".to_string(),
+                Kind::Random => match f.population {
+                    Some(p) => {
+                        format!("a random factor (its levels are {n} of a population of {p})")
+                    }
+                    None => {
+                        "a random factor (its levels stand for a larger population)".to_string()
+                    }
+                },
+            };
+            let total: u64 = n * s
+                .factors
+                .iter()
+                .enumerate()
+                .filter(|(j, _)| f.ancestors & (1 << j) != 0)
+                .map(|(j, _)| layout.levels.per_factor[j])
+                .product::<u64>();
+            if f.within == 0 {
+                format!("{} is {what}, with {n} levels.", f.name)
+            } else {
+                format!(
+                    "{} is {what}, with {n} in each level of {} ({total} in all), nested there.",
+                    f.name,
+                    names(layout, f.within)
+                )
+            }
+        })
+        .collect();
+    let crossed: Vec<String> = s
+        .factors
+        .iter()
+        .enumerate()
+        .flat_map(|(i, a)| {
+            s.factors
+                .iter()
+                .enumerate()
+                .skip(i + 1)
+                .filter_map(move |(j, b)| {
+                    let related = a.ancestors & (1 << j) != 0 || b.ancestors & (1 << i) != 0;
+                    (!related).then(|| format!("{} x {}", a.name, b.name))
+                })
+        })
+        .collect();
+    if !crossed.is_empty() {
+        out.push(format!("Crossed: {}.", crossed.join(", ")));
+    }
+    if !s.omitted.is_empty() {
+        let omitted: Vec<String> = s
+            .omitted
+            .iter()
+            .map(|&m| crate::layout::term_of(s, m).short_label(s))
+            .collect();
+        out.push(format!(
+            "Assumed absent (an assumption, not a measurement): {}.",
+            omitted.join(", ")
+        ));
+    }
+    let each = format!(
+        "{} observation{}",
+        layout.levels.replicates,
+        if layout.levels.replicates == 1 {
+            ""
+        } else {
+            "s"
+        }
+    );
+    if layout.is_balanced() {
+        out.push(format!(
+            "Each cell holds {each}: {} observations in all.",
+            layout.observations()
+        ));
+    } else {
+        let removals: Vec<String> = layout.removed.iter().map(|r| r.describe(s)).collect();
+        out.push(format!(
+            "Each cell of the full layout holds {each} ({} in all); the layout removes {}, leaving {}.",
+            layout.levels.observations(),
+            removals.join("; "),
+            layout.observations()
+        ));
+    }
+    out
+}
+
+
+fn key_term(report: &crate::findings::CheckReport, k: &crate::report::KeyTerm, alpha: f64) -> KeyTerm {
+    let t = &k.term;
+    let test = t.test.as_ref();
+    let scale = match t.kind {
+        Kind::Fixed => "root mean square of effects",
+        Kind::Random => "standard deviation",
+    };
+    let sym = |c: &crate::findings::Component| words::symbol(c.kind, c.residual, &c.short_label);
+    let why = match test {
+        Some(x) if x.verdict.is_testable() => {
+            // A fixed term's error term reproduces the random components and σ² of its
+            // expectation; another fixed term's κ² (which only an unbalanced layout's
+            // sequential sums of squares put there) it does not.
+            let fixed_other = |c: &crate::findings::Component| {
+                t.kind == Kind::Fixed && c.id != t.id && !c.residual && c.kind == Kind::Fixed
+            };
+            let shared: Vec<String> = t
+                .ems
+                .iter()
+                .filter(|c| c.id != t.id && !fixed_other(c))
+                .map(sym)
+                .collect();
+            let carried: Vec<String> = t.ems.iter().filter(|c| fixed_other(c)).map(sym).collect();
+            if carried.is_empty() {
+                format!(
+                    "E(MS) = {}; the error term's expectation holds everything but the term's own component: {}.",
+                    ems_text(t),
+                    shared.join(", ")
+                )
+            } else {
+                format!(
+                    "E(MS) = {}; the error term's expectation holds its random components and σ²: {}. It also carries {}, which the error term does not: with sequential sums of squares the test is not of the term's own effects alone (see the notes).",
+                    ems_text(t),
+                    shared.join(", "),
+                    carried.join(", ")
+                )
+            }
+        }
+        Some(x) => words::reason(t, x).unwrap_or_default(),
+        None => String::new(),
+    };
+    let curve = (!k.curve.is_empty()).then(|| {
+        let series = vec![svg::Series {
+            label: format!("power of {}", t.label),
+            points: k.curve.clone(),
+            dash: "",
+            markers: false,
+        }];
+        let unit = match t.kind {
+            Kind::Fixed => "effect (root mean square)",
+            Kind::Random => "standard deviation",
+        };
+        svg::chart(
+            &format!("Power of the {} test", t.label),
+            unit,
+            "power",
+            &series,
+            Some((0.0, 1.0)),
+            &[(report.target_power, "target"), (alpha, "alpha")],
+        )
+    });
+    KeyTerm {
+        label: t.label.clone(),
+        verdict: test.map_or("-", |x| words::verdict(x.verdict)),
+        tested_over: test.map_or("-".into(), over),
+        why,
+        denominator_df: test.and_then(|x| x.denominator_df),
+        power: test.and_then(|x| x.power),
+        min_detectable: test.and_then(|x| x.min_detectable),
+        scale,
+        curve,
+    }
+}
+
+fn planning_rows(layout: &Layout, plan: &PlanningValues, goal: &Goal) -> Vec<(String, String)> {
+    let s = &layout.structure;
+    let label = |m: u32| {
+        if m == REPLICATE {
+            "residual".to_string()
+        } else {
+            crate::layout::term_of(s, m).short_label(s)
+        }
+    };
+    let mut rows = vec![
+        ("alpha".to_string(), format!("{}", plan.alpha)),
+        (
+            "power for minimum detectable effects".to_string(),
+            format!("{}", plan.power),
+        ),
+    ];
+    for (m, sd) in &plan.priors {
+        rows.push((format!("prior SD of {}", label(*m)), format!("{sd}")));
+    }
+    for (m, e) in &plan.effects {
+        let v = match e {
+            Effect::RootMeanSquare(x) => format!("{x} (root mean square)"),
+            Effect::Range(d) => format!("range {d} (least favourable configuration)"),
+        };
+        rows.push((format!("smallest effect of {}", label(*m)), v));
+    }
+    if let Some(c) = &plan.cost {
+        rows.push(("overhead".to_string(), format!("{}", c.overhead)));
+        for (m, price) in &c.per_unit {
+            rows.push((
+                format!("cost per unit of {}", label(*m)),
+                format!("{price}"),
+            ));
+        }
+    }
+    if !goal.must_test.is_empty() {
+        let terms: Vec<String> = goal.must_test.iter().map(|&m| label(m)).collect();
+        rows.push(("must test".to_string(), terms.join(", ")));
+    }
+    if let Some(d) = goal.min_df {
+        rows.push(("minimum denominator df".to_string(), format!("{d}")));
+    }
+    if let Some(p) = goal.target_power {
+        rows.push(("target power".to_string(), format!("{p}")));
+    }
+    rows
 }

@@ -1,8 +1,8 @@
 //! Rendering of `search` results.
 
-use super::check::tested_over;
+use super::words::tested_over;
 use super::{Format, csv_table, json, markdown_table, num, text_table};
-use crate::check::TestReport;
+use crate::findings::TestReport;
 use crate::search::report::{CandidateReport, MustTestReport, SearchReport};
 
 /// Rows shown of the frontier in text and Markdown (JSON has them all).
@@ -19,6 +19,7 @@ fn over(t: &MustTestReport) -> String {
         power: t.power,
         min_detectable: t.min_detectable,
         reason: None,
+        shortfall: None,
         repairs: Vec::new(),
     })
 }
@@ -59,7 +60,7 @@ fn test_rows(c: &CandidateReport) -> Vec<Vec<String>> {
                 t.label.clone(),
                 over(t),
                 df(t.denominator_df),
-                t.verdict.name().to_string(),
+                super::words::verdict(t.verdict).to_string(),
                 opt(t.power),
                 opt(t.min_detectable),
             ]

@@ -1,8 +1,7 @@
 //! Rendering of `simulate` results and of the dummy data set.
 
-use super::check::CAUTION;
+use super::words::CAUTION;
 use super::{Format, csv_table, json, markdown_table, text_table};
-use crate::check::denominator_words;
 use crate::errorterm::Verdict;
 use crate::layout::SumsOfSquares;
 use crate::render::analyze::sig;
@@ -28,13 +27,7 @@ fn opt(x: Option<f64>) -> String {
 
 fn over(t: &SimulatedTest) -> String {
     match t.verdict {
-        Verdict::Exact => t.denominator[0].term.clone(),
-        Verdict::Synthetic => denominator_words(
-            &t.denominator
-                .iter()
-                .map(|d| (d.term.clone(), d.coefficient))
-                .collect::<Vec<_>>(),
-        ),
+        Verdict::Exact | Verdict::QuasiF => super::words::denominator(&t.denominator),
         _ => "none".into(),
     }
 }
@@ -106,7 +99,7 @@ fn test_rows(r: &SimulateReport) -> Vec<Vec<String>> {
                 x.analytic_power.map_or("-".into(), |p| format!("{p:.3}")),
                 rate(x.power),
                 flags(x),
-                if x.verdict == Verdict::Synthetic {
+                if x.verdict == Verdict::QuasiF {
                     format!("{} / {}", x.undefined, x.null_undefined)
                 } else {
                     "-".into()
@@ -162,7 +155,7 @@ fn csv_rows(r: &SimulateReport) -> Vec<Vec<String>> {
                 plain(t.mean_ms),
                 plain(t.mean_ms_se),
                 t.ms_flag.to_string(),
-                x.map_or(String::new(), |x| x.verdict.name().into()),
+                x.map_or(String::new(), |x| super::check::code(x.verdict)),
                 testable.map_or(String::new(), over),
                 plain(x.and_then(|x| x.planned_df)),
                 plain(x.and_then(|x| x.simulated_df)),
@@ -222,7 +215,7 @@ fn explanation(r: &SimulateReport) -> Vec<String> {
     ]);
     if r.terms
         .iter()
-        .any(|t| tested(t).is_some_and(|x| x.verdict == Verdict::Synthetic))
+        .any(|t| tested(t).is_some_and(|x| x.verdict == Verdict::QuasiF))
     {
         out.push("Synthetic tests: each data set's quasi-F takes its Satterthwaite df from that data set's own mean squares, as an analysis of real data would; the null rate shows how far the approximation drifts from alpha. \"no quasi-F\" counts the data sets (planning values / null) whose denominator was not positive, counted as not rejecting.".into());
     }

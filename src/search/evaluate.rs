@@ -18,7 +18,7 @@ use crate::dist::CriticalValue;
 use crate::ems::Model;
 use crate::errorterm::{Verdict, error_term};
 use crate::layout::{Kind, Levels, term_of};
-use crate::planning::{satterthwaite, to_f64};
+use crate::planning::{power, priced_total, satterthwaite, to_f64};
 use crate::term::{Mask, REPLICATE};
 
 use super::problem::Problem;
@@ -193,8 +193,7 @@ impl Screen {
 
     /// Overhead plus price × cells of every priced term (as `planning::cost`).
     pub fn cost(&self, levels: &Levels) -> f64 {
-        let mut total = self.overhead;
-        for &(subs, price) in &self.priced {
+        let units = |subs: Mask| -> u64 {
             let mut n = if subs & REPLICATE != 0 {
                 levels.replicates
             } else {
@@ -205,9 +204,12 @@ impl Screen {
                     n *= k;
                 }
             }
-            total += price * n as f64;
-        }
-        total
+            n
+        };
+        priced_total(
+            self.overhead,
+            self.priced.iter().map(|&(subs, price)| (price, units(subs))),
+        )
     }
 
     pub fn over_budget(&self, cost: f64) -> bool {
@@ -296,19 +298,7 @@ impl Screen {
             let u = self.model.terms[e.component];
             let theta = match self.model.kinds[e.component] {
                 Kind::Random => self.prior_sq[e.component],
-                Kind::Fixed => match plan.effects.get(&u.live) {
-                    None => 0.0,
-                    Some(effect) => {
-                        let df = u.df(levels);
-                        if df == 0 {
-                            0.0
-                        } else {
-                            let cells = u.cells(levels);
-                            let rms = effect.root_mean_square(cells);
-                            rms * rms * cells as f64 / df as f64
-                        }
-                    }
-                },
+                Kind::Fixed => plan.component_value(&u, Kind::Fixed, levels),
             };
             if theta == 0.0 {
                 continue;
@@ -355,7 +345,7 @@ impl Screen {
             };
             let ok = match shape.verdict {
                 Verdict::Exact => true,
-                Verdict::Synthetic => !self.exact_only,
+                Verdict::QuasiF => !self.exact_only,
                 _ => false,
             };
             if !ok {
@@ -416,17 +406,17 @@ impl Screen {
                 let df1 = self.df(t, levels) as f64;
                 let live = self.model.terms[t].live;
                 let plan = &self.variant.plan;
+                // E(MS_T) less E(D): the term's own part of its expectation.
                 let own = value(t);
-                match self.model.kinds[t] {
-                    Kind::Fixed => plan.effects.contains_key(&live).then(|| {
-                        let lambda = df1 * (own - den) / den;
-                        criticals
-                            .get(self.alpha, df1, df2)
-                            .fixed_power(lambda.max(0.0))
-                    }),
-                    Kind::Random => (plan.priors.contains_key(&live) && own > 0.0)
-                        .then(|| criticals.get(self.alpha, df1, df2).random_power(den / own)),
-                }
+                let kind = self.model.kinds[t];
+                let planned = match kind {
+                    Kind::Fixed => plan.effects.contains_key(&live),
+                    Kind::Random => plan.priors.contains_key(&live) && own > 0.0,
+                };
+                planned.then(|| {
+                    let critical = criticals.get(self.alpha, df1, df2);
+                    power(&critical, kind, df1, own - den, den)
+                })
             });
             powers.push(power.filter(|p| p.is_finite()));
         }

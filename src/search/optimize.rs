@@ -166,7 +166,7 @@ fn optimize_structure(
             };
             match shape.verdict {
                 Verdict::Exact => exact_denominators.push(shape.denominator[0].0),
-                Verdict::Synthetic if !problem.exact_only => {
+                Verdict::QuasiF if !problem.exact_only => {
                     if problem.min_df.is_some() && !screen.variant.plan.has_priors() {
                         ok = false;
                     }

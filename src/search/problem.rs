@@ -75,6 +75,11 @@ impl Problem {
     ) -> Result<Problem, Error> {
         let at = |span: std::ops::Range<usize>| Some(spec::line_of(text, span.start));
         let s = &base.structure;
+        if !base.removed.is_empty() {
+            return Err(Error::Usage(
+                "the design search plans balanced layouts; remove the [[layout.remove]] tables to search, then check the chosen layout with its losses".into(),
+            ));
+        }
         let search = spec.search.as_ref().ok_or_else(|| {
             Error::invalid(
                 None,

@@ -6,7 +6,8 @@
 
 use serde::Serialize;
 
-use crate::check::{DenominatorPart, check};
+use crate::check::check;
+use crate::findings::{DenominatorPart, Reason};
 use crate::errorterm::Verdict;
 use crate::layout::{Kind, Layout, Levels};
 
@@ -111,15 +112,21 @@ pub struct MustTestReport {
     pub denominator_df: Option<f64>,
     pub power: Option<f64>,
     pub min_detectable: Option<f64>,
+    /// Why the term is not simply tested, as `check` finds it.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub reason: Option<String>,
+    pub reason: Option<Reason>,
+    /// Why the term is not in this layout at all.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub absent: Option<String>,
+    /// Only a quasi-F test exists, and the problem asks for exact tests.
+    pub needs_exact: bool,
 }
 
 /// The caution at the end of every search.
 pub fn caution() -> String {
     format!(
         "The search ranks layouts by the prices, planning values and constraints in the problem file; they are assumptions. {}",
-        crate::render::check::CAUTION
+        crate::render::words::CAUTION
     )
 }
 
@@ -141,7 +148,7 @@ pub fn build(
     }
     if !search.problem.plan.has_priors() {
         notes.push(
-            "no [prior] table, so no power: the frontier of cost against power is empty, and ties in cost go to the larger smallest denominator df".into(),
+            "no [sd] table, so no power: the frontier of cost against power is empty, and ties in cost go to the larger smallest denominator df".into(),
         );
     }
     let frontier = tally
@@ -313,27 +320,23 @@ pub fn describe(search: &Search, e: &Entry) -> CandidateReport {
                 denominator_df: None,
                 power: None,
                 min_detectable: None,
-                reason: Some(reason),
+                reason: None,
+                absent: Some(reason),
+                needs_exact: false,
             };
             let t = match located {
                 Ok(t) => *t,
                 Err(why) => return absent(why.clone()),
             };
-            let label = screen.model.terms[t].label(s);
+            let id = screen.model.terms[t].live;
             let Some(test) = report
                 .as_ref()
-                .and_then(|r| r.terms.iter().find(|x| x.label == label))
+                .and_then(|r| r.term(id))
                 .and_then(|x| x.test.clone())
             else {
                 return absent("its counts are too large for exact arithmetic".into());
             };
-            let mut reason = test.reason.clone();
-            if test.verdict == Verdict::Synthetic && search.problem.exact_only {
-                reason = Some(
-                    "only a quasi-F (synthetic) test exists, and exact_only asks for an exact F test"
-                        .into(),
-                );
-            }
+            let needs_exact = test.verdict == Verdict::QuasiF && search.problem.exact_only;
             MustTestReport {
                 label: m.label.clone(),
                 verdict: test.verdict,
@@ -341,7 +344,9 @@ pub fn describe(search: &Search, e: &Entry) -> CandidateReport {
                 denominator_df: test.denominator_df,
                 power: test.power,
                 min_detectable: test.min_detectable,
-                reason,
+                reason: test.reason.clone(),
+                absent: None,
+                needs_exact,
             }
         })
         .collect();
@@ -398,6 +403,20 @@ pub fn words(factors: &[FactorLevels], levels: &Levels, cost: f64) -> String {
     format!("{}; cost {}", parts.join("; "), crate::render::num(cost))
 }
 
+/// Why a must-test term is not tested, in words.
+pub fn must_test_reason(t: &MustTestReport) -> String {
+    if let Some(a) = &t.absent {
+        return a.clone();
+    }
+    if t.needs_exact {
+        return "only a quasi-F test exists, and exact_only asks for an exact F test".into();
+    }
+    match &t.reason {
+        Some(r) => crate::render::words::reason_of(r, t.verdict, &t.denominator),
+        None => "it has no error term".into(),
+    }
+}
+
 /// Why a candidate is rejected, in a sentence.
 fn why(search: &Search, r: Rejection, e: &Entry, c: &CandidateReport) -> String {
     let p = &search.problem;
@@ -412,9 +431,7 @@ fn why(search: &Search, r: Rejection, e: &Entry, c: &CandidateReport) -> String 
         (Rejection::Untestable, Some(t)) => format!(
             "with {layout}, {} cannot be tested: {}",
             t.label,
-            t.reason
-                .clone()
-                .unwrap_or_else(|| "it has no error term".into())
+            must_test_reason(t)
         ),
         (Rejection::MinDf, Some(t)) => match t.denominator_df {
             Some(df) => format!(
@@ -424,7 +441,7 @@ fn why(search: &Search, r: Rejection, e: &Entry, c: &CandidateReport) -> String 
                 p.min_df.map_or("-".into(), crate::render::num)
             ),
             None => format!(
-                "with {layout}, {} has only a quasi-F test, whose Satterthwaite df are unknown without a [prior] table, so min_df cannot be met",
+                "with {layout}, {} has only a quasi-F test, whose Satterthwaite df are unknown without an [sd] table, so min_df cannot be met",
                 t.label
             ),
         },
@@ -466,7 +483,7 @@ fn binding(search: &Search, tally: &Tally, rejections: &[RejectionReport]) -> St
                 p.min_df.map_or("-".into(), crate::render::num)
             ),
             None => format!(
-                "min_df binds: the testable layouts leave {} with a quasi-F test whose df are unknown without a [prior] table",
+                "min_df binds: the testable layouts leave {} with a quasi-F test whose df are unknown without an [sd] table",
                 t.map_or("a must-test term".into(), |t| t.label.clone())
             ),
         };

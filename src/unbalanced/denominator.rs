@@ -1,5 +1,4 @@
-//! Error terms, Satterthwaite df and power from synthesised (floating-point) expected
-//! mean squares.
+//! Error terms from synthesised (floating-point) expected mean squares.
 //!
 //! The denominator of term T is a linear combination D = Σ w_V MS_V of other mean squares
 //! with E(D) equal to E(MS_T) less T's own component, identically in the components. For a
@@ -18,13 +17,9 @@
 
 use nalgebra::{DMatrix, DVector};
 
-use crate::dist::{self, CriticalValue};
 use crate::ems::Model;
 use crate::errorterm::Verdict;
-use crate::layout::{Kind, Layout};
-use crate::planning::{
-    PlanningValues, TestPlan, component_values, min_noncentrality, satterthwaite,
-};
+use crate::layout::Kind;
 
 use super::fit::SynthesisEms;
 
@@ -189,118 +184,11 @@ pub fn error_term(model: &Model, ems: &SynthesisEms, df: &[u64], t: usize) -> Sy
     let verdict = if weights.len() == 1 && (weights[0].1 - 1.0).abs() <= tolerance {
         Verdict::Exact
     } else {
-        Verdict::Synthetic
+        Verdict::QuasiF
     };
     SynthesisTest {
         verdict,
         denominator: weights,
         isolated: Vec::new(),
     }
-}
-
-/// Expected mean squares in the response's units under the planning values.
-pub fn ems_values(
-    model: &Model,
-    ems: &SynthesisEms,
-    plan: &PlanningValues,
-    layout: &Layout,
-) -> Vec<f64> {
-    let theta = component_values(model, plan, &layout.levels);
-    ems.rows
-        .iter()
-        .map(|row| row.iter().map(|(c, k)| k * theta[*c]).sum())
-        .collect()
-}
-
-/// Power, denominator df and minimum detectable effect of every test.
-///
-/// - Synthetic denominators get Satterthwaite's (1946) df,
-///   (Σ wᵢ E(MSᵢ))² / Σ (wᵢ E(MSᵢ))² / dfᵢ.
-/// - A fixed term: noncentral F with λ = df₁ q κ²_T / E(D), where q is the coefficient of
-///   its own κ²_T (the average over effect patterns of the planned size, see `fit`); only
-///   the term's own effect counts. The minimum detectable root mean square follows from
-///   κ² = RMS² × cells / df (the full layout's cells and df, as in the balanced case).
-/// - A random term: P(F > F_crit × E(D) / E(MS_T)), as in the balanced case.
-///
-/// In an unbalanced layout the mean squares are not scaled chi-squares in general, so these
-/// F distributions are approximations.
-pub fn plan_tests(
-    model: &Model,
-    ems: &SynthesisEms,
-    df: &[u64],
-    tests: &[Option<SynthesisTest>],
-    plan: &PlanningValues,
-    layout: &Layout,
-) -> Vec<Option<TestPlan>> {
-    let values = ems_values(model, ems, plan, layout);
-    let theta = component_values(model, plan, &layout.levels);
-    tests
-        .iter()
-        .enumerate()
-        .map(|(t, test)| {
-            let test = test.as_ref()?;
-            if !test.verdict.is_testable() {
-                return None;
-            }
-            let exact_df =
-                (test.verdict == Verdict::Exact).then(|| df[test.denominator[0].0] as f64);
-            let mut out = TestPlan {
-                denominator_df: exact_df,
-                power: None,
-                min_detectable: None,
-                noncentrality: None,
-            };
-            if !plan.has_priors() {
-                return Some(out);
-            }
-            let den: f64 = test.denominator.iter().map(|(v, w)| w * values[*v]).sum();
-            let df2 = exact_df.or_else(|| {
-                satterthwaite(
-                    &test
-                        .denominator
-                        .iter()
-                        .map(|(v, w)| (*w, values[*v], df[*v]))
-                        .collect::<Vec<_>>(),
-                )
-            });
-            out.denominator_df = df2;
-            let Some(df2) = df2 else { return Some(out) };
-            if den <= 0.0 || !den.is_finite() {
-                return Some(out);
-            }
-            let df1 = df[t] as f64;
-            let critical = CriticalValue::new(plan.alpha, df1, df2);
-            let term = model.terms[t];
-            let own = ems.coefficient(t, t);
-            match model.kinds[t] {
-                Kind::Fixed => {
-                    if own > 0.0 {
-                        if plan.effects.contains_key(&term.live) {
-                            let lambda = df1 * own * theta[t] / den;
-                            out.noncentrality = Some(lambda);
-                            out.power = Some(critical.fixed_power(lambda.max(0.0)));
-                        }
-                        let cells = term.cells(&layout.levels) as f64;
-                        let full_df = term.df(&layout.levels) as f64;
-                        out.min_detectable =
-                            min_noncentrality(&critical, plan.power).map(|lambda| {
-                                let kappa = lambda * den / (df1 * own);
-                                (kappa * full_df / cells).sqrt()
-                            });
-                    }
-                }
-                Kind::Random => {
-                    if plan.priors.contains_key(&term.live) && values[t] > 0.0 {
-                        out.power = Some(critical.random_power(den / values[t]));
-                    }
-                    let q = dist::f_quantile(1.0 - plan.power, df1, df2);
-                    let r = q / critical.value();
-                    if r > 0.0 && r < 1.0 && own > 0.0 {
-                        out.min_detectable = Some((den * (1.0 / r - 1.0) / own).sqrt());
-                    }
-                }
-            }
-            Some(out)
-        })
-        .collect()
 }
