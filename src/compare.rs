@@ -185,7 +185,7 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
                     }
                     "convention" => {
                         layout.structure.convention = match value.as_str() {
-                            "restricted" if !layout.is_balanced() => {
+                            "restricted" if !layout.defines(Convention::Restricted) => {
                                 return Err(bad(RESTRICTED_UNBALANCED.into()));
                             }
                             "restricted" => Convention::Restricted,

@@ -6,6 +6,7 @@ pub mod check;
 pub mod compare;
 pub mod report;
 pub mod search;
+pub mod search_words;
 pub mod simulate;
 pub mod svg;
 pub mod words;

@@ -458,14 +458,14 @@ pub fn search_section(s: &crate::search::SearchReport) -> (String, String, Strin
     let _ = writeln!(md, "{intro}\n");
     match &s.best {
         Some(b) => {
-            let line = format!("Chosen: {}.", b.description);
+            let line = format!("Chosen: {}.", super::search_words::description(b));
             let _ = writeln!(html, "<p><strong>{}</strong></p>", esc(&line));
             let _ = writeln!(md, "**{line}**\n");
         }
         None => {
             let line = format!(
                 "No candidate met every constraint. {}",
-                s.binding.clone().unwrap_or_default()
+                super::search_words::binding(s).unwrap_or_default()
             );
             let _ = writeln!(html, "<p><strong>{}</strong></p>", esc(&line));
             let _ = writeln!(md, "**{line}**\n");
@@ -485,7 +485,7 @@ pub fn search_section(s: &crate::search::SearchReport) -> (String, String, Strin
         .map(|(i, c)| {
             vec![
                 (i + 1).to_string(),
-                c.description.clone(),
+                super::search_words::description(c),
                 num(c.cost),
                 df_opt(c.smallest_df),
                 opt(c.smallest_power, 3),
@@ -546,7 +546,7 @@ pub fn search_section(s: &crate::search::SearchReport) -> (String, String, Strin
             let _ = writeln!(
                 md,
                 "- {}: cost {}, smallest power {}",
-                c.description,
+                super::search_words::description(c),
                 num(c.cost),
                 opt(c.smallest_power, 3)
             );
@@ -561,9 +561,9 @@ pub fn search_section(s: &crate::search::SearchReport) -> (String, String, Strin
                 "{} candidate{} rejected ({}); the cheapest, at {}: {}",
                 r.count,
                 if r.count == 1 { "" } else { "s" },
-                format!("{:?}", r.reason).to_lowercase(),
+                super::search_words::rejection(r.reason),
                 num(r.cheapest.cost),
-                r.why
+                super::search_words::why(r, &s.constraints)
             );
             let _ = writeln!(html, "<li>{}</li>", esc(&line));
             let _ = writeln!(md, "- {line}");
@@ -796,7 +796,7 @@ fn describe(layout: &Layout) -> Vec<String> {
             "s"
         }
     );
-    if layout.is_balanced() {
+    if layout.removed.is_empty() {
         out.push(format!(
             "Each cell holds {each}: {} observations in all.",
             layout.observations()

@@ -177,19 +177,19 @@ fn body(r: &SearchReport, table: Table, heading: fn(&str) -> String, bullet: &st
     match &r.best {
         Some(b) => {
             out.push_str(&heading(&format!("Best layout ({})", b.structure)));
-            out.push_str(&format!("{}.\n\n", b.description));
+            out.push_str(&format!("{}.\n\n", super::search_words::description(b)));
             out.push_str(&table(&TEST_HEADER, test_rows(b)));
         }
         None => {
             out.push_str(&heading("No layout meets every constraint"));
-            if let Some(why) = &r.binding {
+            if let Some(why) = &super::search_words::binding(r) {
                 out.push_str(&format!("{}.\n", capitalise(why)));
             }
             if let Some(w) = &r.without_budget {
                 let over = r.constraints.budget.map(|b| w.cost - b).unwrap_or(0.0);
                 out.push_str(&format!(
                     "Without the budget, the cheapest layout that meets every other constraint is {} ({} over the budget; {}).\n",
-                    w.description,
+                    super::search_words::description(w),
                     num(over),
                     w.structure
                 ));
@@ -224,17 +224,18 @@ fn body(r: &SearchReport, table: Table, heading: fn(&str) -> String, bullet: &st
                 "{bullet}{} ({}): the cheapest: {}.\n",
                 x.reason.name(),
                 x.count,
-                x.why
+                super::search_words::why(x, &r.constraints)
             ));
         }
     }
-    if !r.notes.is_empty() {
+    let notes = super::search_words::notes(&r.notes);
+    if !notes.is_empty() {
         out.push('\n');
-        for n in &r.notes {
+        for n in &notes {
             out.push_str(&format!("{bullet}note: {n}\n"));
         }
     }
-    out.push_str(&format!("\n{}\n", r.caution));
+    out.push_str(&format!("\n{}\n", super::search_words::caution()));
     out
 }
 

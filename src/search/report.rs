@@ -36,13 +36,50 @@ pub struct SearchReport {
     /// The cheapest candidate rejected for each reason, with why.
     pub rejections: Vec<RejectionReport>,
     /// When nothing is feasible: which constraint binds and how far the nearest miss is.
-    pub binding: Option<String>,
+    pub binding: Option<Binding>,
     /// When nothing is feasible within the budget: the cheapest candidate that meets
     /// every other constraint.
     pub without_budget: Option<CandidateReport>,
     pub constraints: Constraints,
-    pub notes: Vec<String>,
-    pub caution: String,
+    pub notes: Notes,
+}
+
+/// What the reader should know about how the search was run.
+#[derive(Debug, Clone, Default, Serialize)]
+pub struct Notes {
+    /// Structures left out of the space, as they give no valid layout.
+    pub skipped: Vec<String>,
+    /// The frontier's size when only its cheapest points are shown.
+    pub frontier_points: Option<usize>,
+    pub frontier_shown: usize,
+    /// No standard deviations: no power, no frontier.
+    pub no_sd: bool,
+    /// Found by the integer program: (solves, candidates screened).
+    pub optimizer: Option<(u64, u64)>,
+}
+
+/// The constraint that binds when nothing is feasible.
+#[derive(Debug, Clone, Serialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+pub enum Binding {
+    /// No layout reaches the power target; the closest one.
+    Power {
+        closest: Box<CandidateReport>,
+        term: Option<String>,
+    },
+    /// No testable layout gives enough denominator df; the one with the most.
+    MinDf {
+        closest: Box<CandidateReport>,
+        term: Option<String>,
+    },
+    /// No layout tests every must-test term; the cheapest (its rejection explains).
+    Testability,
+    /// Every candidate is over the budget.
+    Budget,
+    /// The space holds no candidate.
+    Empty,
+    /// The integer program proves that no candidate meets every constraint.
+    Proven,
 }
 
 #[derive(Debug, Clone, Copy, Serialize, Default)]
@@ -68,8 +105,6 @@ pub struct RejectionReport {
     pub reason: Rejection,
     pub count: u64,
     pub cheapest: CandidateReport,
-    /// Why the cheapest candidate is rejected, in a sentence.
-    pub why: String,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -79,8 +114,8 @@ pub struct CandidateReport {
     pub observations: u64,
     /// The structural picks: "bench within light, cultivar; no rack".
     pub structure: String,
-    /// The layout in words: what to buy and how to arrange it.
-    pub description: String,
+    /// Cells of the layout (every combination of the factors' levels).
+    pub cells: u64,
     /// Every factor left in the layout.
     pub factors: Vec<FactorLevels>,
     pub left_out: Vec<String>,
@@ -91,6 +126,9 @@ pub struct CandidateReport {
     pub smallest_power: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub rejected: Option<Rejection>,
+    /// The must-test term (its index in `tests`) that failed first.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub failing: Option<usize>,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -122,14 +160,6 @@ pub struct MustTestReport {
     pub needs_exact: bool,
 }
 
-/// The caution at the end of every search.
-pub fn caution() -> String {
-    format!(
-        "The search ranks layouts by the prices, planning values and constraints in the problem file; they are assumptions. {}",
-        crate::render::words::CAUTION
-    )
-}
-
 /// Builds the full report from an enumeration.
 pub fn build(
     search: &Search,
@@ -141,15 +171,8 @@ pub fn build(
     let frontier_cap = 40;
     let mut notes = notes(search);
     if tally.frontier.len() > frontier_cap {
-        notes.push(format!(
-            "the frontier has {} points; the {frontier_cap} cheapest are shown",
-            tally.frontier.len()
-        ));
-    }
-    if !search.problem.plan.has_priors() {
-        notes.push(
-            "no [sd] table, so no power: the frontier of cost against power is empty, and ties in cost go to the larger smallest denominator df".into(),
-        );
+        notes.frontier_points = Some(tally.frontier.len());
+        notes.frontier_shown = frontier_cap;
     }
     let frontier = tally
         .frontier
@@ -162,13 +185,10 @@ pub fn build(
         .enumerate()
         .filter_map(|(slot, &r)| {
             let e = tally.cheapest[slot].as_ref()?;
-            let cheapest = describe(search, e);
-            let why = why(search, r, e, &cheapest);
             Some(RejectionReport {
                 reason: r,
                 count: tally.count(r),
-                cheapest,
-                why,
+                cheapest: describe(search, e),
             })
         })
         .collect();
@@ -196,7 +216,6 @@ pub fn build(
         without_budget,
         constraints: constraints(search),
         notes,
-        caution: caution(),
     }
 }
 
@@ -205,14 +224,9 @@ pub fn build(
 pub fn build_optimized(search: &Search, options: &Options, found: Optimized) -> SearchReport {
     let candidates: Vec<CandidateReport> = found.best.iter().map(|e| describe(search, e)).collect();
     let mut notes = notes(search);
-    notes.push(format!(
-        "found by the integer program ({} solves, {} candidates screened exactly): only the best of each structure is ranked, and there is no frontier or tally of the whole space; use --method enumerate for those",
-        found.solves, found.screened
-    ));
+    notes.optimizer = Some((found.solves, found.screened));
     let best = candidates.first().cloned();
-    let binding = best.is_none().then(|| {
-        "no candidate meets every constraint (the optimizer proves it per structure; run --method enumerate to see the nearest misses)".to_string()
-    });
+    let binding = best.is_none().then_some(Binding::Proven);
     SearchReport {
         name: search.problem.base.name.clone(),
         method: options.method,
@@ -234,7 +248,6 @@ pub fn build_optimized(search: &Search, options: &Options, found: Optimized) -> 
         without_budget: None,
         constraints: constraints(search),
         notes,
-        caution: caution(),
     }
 }
 
@@ -250,14 +263,12 @@ fn constraints(search: &Search) -> Constraints {
     }
 }
 
-fn notes(search: &Search) -> Vec<String> {
-    let mut notes = Vec::new();
-    for s in &search.skipped {
-        notes.push(format!(
-            "left out of the space, as it gives no valid layout: {s}"
-        ));
+fn notes(search: &Search) -> Notes {
+    Notes {
+        skipped: search.skipped.clone(),
+        no_sd: !search.problem.plan.has_priors(),
+        ..Notes::default()
     }
-    notes
 }
 
 /// The layout of a candidate, as `check` would read it.
@@ -360,145 +371,43 @@ pub fn describe(search: &Search, e: &Entry) -> CandidateReport {
         replicates: levels.replicates,
         observations: levels.observations(),
         structure: v.describe(base),
-        description: words(&factors, levels, e.outcome.cost),
+        cells: levels.cells(),
         factors,
         left_out,
         tests,
         smallest_df: e.outcome.min_df,
         smallest_power: e.outcome.min_power,
         rejected: e.outcome.rejection,
+        failing: e.outcome.failing,
     }
 }
 
-/// "light 3; bench 3 in each light (9 in all); cultivar 4; 2 replicates in each of the
-/// 108 cells: 216 observations; cost 4810".
-pub fn words(factors: &[FactorLevels], levels: &Levels, cost: f64) -> String {
-    let mut parts: Vec<String> = factors
-        .iter()
-        .map(|f| {
-            if f.within.is_empty() {
-                format!("{} {}", f.name, f.levels)
-            } else {
-                format!(
-                    "{} {} in each {} ({} in all)",
-                    f.name,
-                    f.levels,
-                    f.within.join(" x "),
-                    f.in_all
-                )
-            }
-        })
-        .collect();
-    let cells = levels.cells();
-    let reps = if levels.replicates == 1 {
-        format!("1 observation in each of the {cells} cells")
-    } else {
-        format!(
-            "{} replicates in each of the {cells} cells: {} observations",
-            levels.replicates,
-            levels.observations()
-        )
+/// Which constraint binds when nothing is feasible, and the nearest miss.
+fn binding(search: &Search, tally: &Tally, rejections: &[RejectionReport]) -> Binding {
+    let failing = |c: &CandidateReport| {
+        c.failing
+            .and_then(|k| c.tests.get(k))
+            .map(|t| t.label.clone())
     };
-    parts.push(reps);
-    format!("{}; cost {}", parts.join("; "), crate::render::num(cost))
-}
-
-/// Why a must-test term is not tested, in words.
-pub fn must_test_reason(t: &MustTestReport) -> String {
-    if let Some(a) = &t.absent {
-        return a.clone();
-    }
-    if t.needs_exact {
-        return "only a quasi-F test exists, and exact_only asks for an exact F test".into();
-    }
-    match &t.reason {
-        Some(r) => crate::render::words::reason_of(r, t.verdict, &t.denominator),
-        None => "it has no error term".into(),
-    }
-}
-
-/// Why a candidate is rejected, in a sentence.
-fn why(search: &Search, r: Rejection, e: &Entry, c: &CandidateReport) -> String {
-    let p = &search.problem;
-    let test = e.outcome.failing.and_then(|k| c.tests.get(k));
-    let layout = &c.description;
-    match (r, test) {
-        (Rejection::Budget, _) => format!(
-            "{layout}, over the budget of {} by {}",
-            p.budget.map_or("none".into(), crate::render::num),
-            crate::render::num(e.outcome.cost - p.budget.unwrap_or(0.0))
-        ),
-        (Rejection::Untestable, Some(t)) => format!(
-            "with {layout}, {} cannot be tested: {}",
-            t.label,
-            must_test_reason(t)
-        ),
-        (Rejection::MinDf, Some(t)) => match t.denominator_df {
-            Some(df) => format!(
-                "with {layout}, {} is tested with only {} denominator df (min_df {})",
-                t.label,
-                crate::render::num(df),
-                p.min_df.map_or("-".into(), crate::render::num)
-            ),
-            None => format!(
-                "with {layout}, {} has only a quasi-F test, whose Satterthwaite df are unknown without an [sd] table, so min_df cannot be met",
-                t.label
-            ),
-        },
-        (Rejection::Power, Some(t)) => format!(
-            "with {layout}, {} has power {} (target {})",
-            t.label,
-            t.power.map_or("unknown".into(), |x| format!("{x:.3}")),
-            p.target_power.unwrap_or(0.0)
-        ),
-        (_, None) => format!("{layout}: rejected ({})", r.name()),
-    }
-}
-
-/// Which constraint binds when nothing is feasible, and how far the nearest miss is.
-fn binding(search: &Search, tally: &Tally, rejections: &[RejectionReport]) -> String {
-    let p = &search.problem;
     if let Some(e) = &tally.nearest_power {
         let c = describe(search, e);
-        let t = e.outcome.failing.and_then(|k| c.tests.get(k));
-        return format!(
-            "the power target binds: no layout within the constraints reaches power {} for every must-test term; the closest, {}, reaches {} for {}",
-            p.target_power.unwrap_or(0.0),
-            c.description,
-            e.outcome
-                .min_power
-                .map_or("unknown".into(), |x| format!("{x:.3}")),
-            t.map_or("a must-test term".into(), |t| t.label.clone())
-        );
+        return Binding::Power {
+            term: failing(&c),
+            closest: Box::new(c),
+        };
     }
     if let Some(e) = &tally.nearest_df {
         let c = describe(search, e);
-        let t = e.outcome.failing.and_then(|k| c.tests.get(k));
-        return match e.outcome.min_df {
-            Some(df) => format!(
-                "min_df binds: the most denominator df any testable layout gives its worst must-test term is {} ({}, {}), short of {}",
-                crate::render::num(df),
-                t.map_or("a must-test term".into(), |t| t.label.clone()),
-                c.description,
-                p.min_df.map_or("-".into(), crate::render::num)
-            ),
-            None => format!(
-                "min_df binds: the testable layouts leave {} with a quasi-F test whose df are unknown without an [sd] table",
-                t.map_or("a must-test term".into(), |t| t.label.clone())
-            ),
+        return Binding::MinDf {
+            term: failing(&c),
+            closest: Box::new(c),
         };
     }
-    if let Some(r) = rejections
-        .iter()
-        .find(|r| r.reason == Rejection::Untestable)
-    {
-        return format!(
-            "testability binds: no layout in the space tests every must-test term; the cheapest of them: {}",
-            r.why
-        );
-    }
-    match rejections.iter().find(|r| r.reason == Rejection::Budget) {
-        Some(r) => format!("the budget binds: every candidate is over it; {}", r.why),
-        None => "the space holds no candidate".into(),
+    if rejections.iter().any(|r| r.reason == Rejection::Untestable) {
+        Binding::Testability
+    } else if rejections.iter().any(|r| r.reason == Rejection::Budget) {
+        Binding::Budget
+    } else {
+        Binding::Empty
     }
 }
