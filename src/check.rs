@@ -5,10 +5,10 @@
 use crate::engine::{Analysis, Outcome};
 use crate::error::Error;
 use crate::errorterm::{Verdict, weight_text};
+pub use crate::findings::{BothReport, CheckReport, TermReport, TestReport};
 use crate::findings::{
-    BothReport, Carried, ChangeReport, CheckReport, Component, DenominatorPart, EmptyCells, Gap,
-    Isolated, PlanningGaps, Reason, RepairReport, Shortfall, Summary, TermReport, TestReport,
-    Unit, Warning,
+    Carried, ChangeReport, Component, DenominatorPart, EmptyCells, Gap, Isolated, PlanningGaps,
+    Reason, RepairReport, Shortfall, Summary, Unit, Warning,
 };
 use crate::goal::Goal;
 use crate::layout::{Convention, Kind, Layout, SumsOfSquares};

@@ -183,7 +183,7 @@ fn nested_random_layout_against_numpy() {
 fn moment_estimates_agree_with_error_terms() {
     let layout = layout_from_file("problems/coating-lines.toml");
     let r = run(&layout, "tests/fixtures/data/coating-crossed.csv");
-    let a = emsplan::check::Analysis::new(&layout).unwrap();
+    let a = emsplan::engine::Analysis::new(&layout).unwrap();
     let ms: Vec<f64> = r.terms.iter().map(|t| t.ms.unwrap_or(f64::NAN)).collect();
     let theta = emsplan::analyze::moment_estimates(&a, &ms);
     for (t, e) in a.tests.iter().enumerate() {
@@ -194,9 +194,9 @@ fn moment_estimates_agree_with_error_terms() {
         let d: f64 = e
             .denominator
             .iter()
-            .map(|(v, w)| emsplan::planning::to_f64(w) * ms[*v])
+            .map(|(v, w)| w.value() * ms[*v])
             .sum();
-        let own = emsplan::planning::to_f64(&a.ems.coefficient(t, t));
+        let own = a.coefficient(t, t);
         let want = (ms[t] - d) / own;
         let got = theta[t].unwrap();
         assert!(

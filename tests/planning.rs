@@ -144,7 +144,7 @@ fn cost_breakdown() {
     let chamber = c
         .breakdown
         .iter()
-        .find(|l| l.term == "chamber(light)")
+        .find(|l| l.label == "chamber(light)")
         .unwrap();
     assert_eq!(chamber.units, 9);
 }

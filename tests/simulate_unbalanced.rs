@@ -186,9 +186,9 @@ fn lost_chamber_mean_squares_follow_their_expectation() {
         let exact = term(&r, "chamber x cultivar(light)").test.as_ref().unwrap();
         assert_eq!(exact.verdict, Verdict::Exact, "{context}");
 
-        let a = emsplan::unbalanced::Analysis::new(&layout).unwrap();
-        let averaged =
-            emsplan::unbalanced::denominator::ems_values(&a.design.model, &a.ems, &plan, &layout);
+        let averaged = emsplan::engine::Analysis::new(&layout)
+            .unwrap()
+            .ems_values(&plan);
         let light = r.terms.iter().position(|t| t.label == "light").unwrap();
         let t = &r.terms[light];
         assert!(type3 || t.df > 0, "{context}: light has df");

@@ -4,7 +4,8 @@
 
 use std::collections::BTreeMap;
 
-use emsplan::check::{CheckReport, check};
+use emsplan::check::check;
+use emsplan::findings::CheckReport;
 use emsplan::errorterm::Verdict;
 use emsplan::layout::{Convention, Layout};
 use emsplan::planning::PlanningValues;
@@ -303,15 +304,13 @@ within = ["ration"]
     // The reason names the confounded variance, and the repair is a second pen.
     let ration = r.terms.iter().find(|t| t.label == "ration").unwrap();
     let test = ration.test.as_ref().unwrap();
-    assert!(
-        test.reason.as_ref().unwrap().contains("pen"),
-        "{:?}",
-        test.reason
-    );
+    let reason = emsplan::render::words::reason(ration, test).unwrap();
+    assert!(reason.contains("pen"), "{reason}");
     assert!(
         test.repairs
             .iter()
-            .any(|x| x.change.contains("2 levels of pen") && !x.assumption),
+            .any(|x| emsplan::render::words::change(&x.change).contains("2 levels of pen")
+                && !x.assumption),
         "{:?}",
         test.repairs
     );

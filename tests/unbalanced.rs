@@ -24,7 +24,11 @@ use emsplan::ems::Model;
 use emsplan::errorterm::Verdict;
 use emsplan::layout::{Convention, Factor, Kind, Layout, Levels, Structure, SumsOfSquares};
 use emsplan::planning::{PlanningValues, to_f64};
-use emsplan::unbalanced::{Analysis, Design, Fit};
+use emsplan::unbalanced::{Design, Fit};
+
+#[path = "common/synthesis.rs"]
+mod synthesis;
+use synthesis::Analysis;
 use proptest::prelude::*;
 
 const TOLERANCE: f64 = 1e-9;
@@ -573,7 +577,7 @@ fn type3_with_an_empty_cell_loses_df_and_says_so() {
     let spec = emsplan::spec::parse(&text).unwrap();
     let plan = PlanningValues::from_spec(&spec, &text, &l3).unwrap();
     let report = emsplan::check::check(&l3, Convention::Unrestricted, &plan).unwrap();
-    let all = report.findings.join("\n");
+    let all = emsplan::render::words::findings(&report).join("\n");
     assert!(
         all.contains("the removals leave light with no df (it had 1)")
             && all.contains(

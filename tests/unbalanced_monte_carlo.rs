@@ -21,7 +21,11 @@
 //! the fit order; the residual is y'(I - P_K)y; df are rank increases.
 
 use emsplan::layout::{Kind, Layout};
-use emsplan::unbalanced::{Analysis, Design};
+use emsplan::unbalanced::Design;
+
+#[path = "common/synthesis.rs"]
+mod synthesis;
+use synthesis::Analysis;
 use nalgebra::{DMatrix, DVector};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;

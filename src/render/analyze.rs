@@ -126,7 +126,7 @@ fn csv_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
                 } else {
                     String::new()
                 },
-                t.map_or(String::new(), |t| super::check::code(t.verdict)),
+                t.map_or(String::new(), |t| super::check::code(t.verdict).into()),
                 plain(t.and_then(|t| t.f)),
                 plain(t.and_then(|t| t.denominator_df)),
                 plain(t.and_then(|t| t.p)),

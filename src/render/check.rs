@@ -121,7 +121,7 @@ fn csv_rows(report: &CheckReport) -> Vec<Vec<String>> {
                 test.filter(|x| x.verdict.is_testable())
                     .map_or(String::new(), tested_over),
                 full(test.and_then(|x| x.denominator_df)),
-                test.map_or(String::new(), |x| code(x.verdict)),
+                test.map_or(String::new(), |x| code(x.verdict).to_string()),
                 full(test.and_then(|x| x.power)),
                 full(test.and_then(|x| x.min_detectable)),
             ]
@@ -130,11 +130,13 @@ fn csv_rows(report: &CheckReport) -> Vec<Vec<String>> {
 }
 
 /// A verdict as the JSON spells it, for machine-read formats.
-pub fn code(v: Verdict) -> String {
-    serde_json::to_value(v)
-        .ok()
-        .and_then(|j| j.as_str().map(str::to_string))
-        .unwrap_or_default()
+pub fn code(v: Verdict) -> &'static str {
+    match v {
+        Verdict::Exact => "exact",
+        Verdict::QuasiF => "quasi_f",
+        Verdict::Untestable => "untestable",
+        Verdict::NotEstimable => "not_estimable",
+    }
 }
 
 /// The cost breakdown, one line per priced term.

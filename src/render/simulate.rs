@@ -155,7 +155,7 @@ fn csv_rows(r: &SimulateReport) -> Vec<Vec<String>> {
                 plain(t.mean_ms),
                 plain(t.mean_ms_se),
                 t.ms_flag.to_string(),
-                x.map_or(String::new(), |x| super::check::code(x.verdict)),
+                x.map_or(String::new(), |x| super::check::code(x.verdict).into()),
                 testable.map_or(String::new(), over),
                 plain(x.and_then(|x| x.planned_df)),
                 plain(x.and_then(|x| x.simulated_df)),
