@@ -603,7 +603,7 @@ fn crossed_mixed_layout_with_a_quasi_f_test() {
         let sim = Simulator::new(with_convention(COATING, c), COATING_VARIANCES, seed);
         let findings = simulate(&sim, seed + 100);
         assert!(
-            findings.iter().any(|f| f.what.contains("Synthetic")),
+            findings.iter().any(|f| f.what.contains("QuasiF")),
             "the layout has a synthetic test under {c:?}"
         );
         assert_all_hold(&findings, &format!("coating lines, {c:?}"));

@@ -590,7 +590,7 @@ fn the_draws_reach_every_case() {
         omitted += !s.omitted.is_empty() as usize;
         nested += s.factors.iter().any(|f| f.within != 0) as usize;
     }
-    for v in ["exact", "synthetic", "untestable", "not_estimable"] {
+    for v in ["exact", "quasi_f", "untestable", "not_estimable"] {
         assert!(
             verdicts.get(v).copied().unwrap_or(0) > 0,
             "no {v} verdict in {verdicts:?}"

@@ -619,7 +619,7 @@ day = [2, 3]
     assert!(r.best.is_none());
     let (n, why) = rejection(&r, Rejection::MinDf);
     assert_eq!(n, 2);
-    assert!(why.contains("unknown without a [prior] table"), "{why}");
+    assert!(why.contains("unknown without an [sd] table"), "{why}");
     let binding = emsplan::render::search_words::binding(&r).expect("binding");
     assert!(binding.contains("min_df binds"), "{binding}");
 }

@@ -146,8 +146,7 @@ fn nothing_feasible_says_what_binds() {
     assert_eq!(out.status.code(), Some(0));
     let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("JSON");
     assert!(v["best"].is_null());
-    let binding = v["binding"].as_str().expect("binding");
-    assert!(binding.contains("binds"), "{binding}");
+    assert!(v["binding"]["kind"].is_string(), "{}", v["binding"]);
     assert!(v["without_budget"]["cost"].as_f64().expect("cost") > 6000.0);
     let text_out = run(&["search", path.to_str().expect("path")]);
     let s = String::from_utf8_lossy(&text_out.stdout);
