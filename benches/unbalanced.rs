@@ -7,9 +7,10 @@ use std::hint::black_box;
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use emsplan::check::check;
+use emsplan::engine::Analysis;
 use emsplan::layout::{Convention, Layout, SumsOfSquares};
 use emsplan::planning::PlanningValues;
-use emsplan::unbalanced::{Analysis, Design, Fit};
+use emsplan::unbalanced::{Design, Fit};
 
 /// Four feeds (fixed) on five farms (random), five breeds (fixed), ten pens per breed
 /// (random, nested), two animals per cell: 4 x 5 x 5 x 10 x 2 = 2,000 observations. The

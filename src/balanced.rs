@@ -297,6 +297,21 @@ pub fn odometer(levels: &[usize], at: &mut [usize]) {
     }
 }
 
+/// Mean squares and their parts for data in cell order: sums of squares, mean squares and
+/// the grand mean. Shared by `analyze` and `simulate`, whose data sets go through the same numbers.
+pub fn anova_numbers(b: &Balanced, y: &[f64]) -> (Vec<f64>, Vec<f64>, f64) {
+    let n = y.len() as f64;
+    let centre = y.iter().sum::<f64>() / n;
+    let mut totals = vec![0.0; b.cells()];
+    let within = cell_summaries(y, b.replicates(), centre, &mut totals);
+    let terms = b.df().len();
+    let mut ss = vec![0.0; terms];
+    b.sums_of_squares(&totals, within, &mut b.scratch(), &mut ss);
+    let mut ms = vec![0.0; terms];
+    b.mean_squares(&ss, &mut ms);
+    (ss, ms, centre)
+}
+
 /// Cell totals and the pooled within-cell sum of squares of data given cell by cell
 /// (`replicates` observations per cell, cells in order), after subtracting `centre`.
 /// Two passes per cell, so the within-cell sum of squares does not cancel.

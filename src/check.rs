@@ -409,7 +409,8 @@ fn summary(a: &Analysis) -> Option<Summary> {
                 if g == f {
                     unit.level = at[k] as u64 + 1;
                 } else {
-                    unit.within.push((s.factors[g].name.clone(), at[k] as u64 + 1));
+                    unit.within
+                        .push((s.factors[g].name.clone(), at[k] as u64 + 1));
                 }
             }
             emptied_units.push(unit);
@@ -448,7 +449,12 @@ fn summary(a: &Analysis) -> Option<Summary> {
     let full = layout.levels.observations();
     Some(Summary {
         sums_of_squares: syn.fit.sums_of_squares,
-        fit_order: syn.fit.order.iter().map(|&t| model.terms[t].label(s)).collect(),
+        fit_order: syn
+            .fit
+            .order
+            .iter()
+            .map(|&t| model.terms[t].label(s))
+            .collect(),
         full_observations: full,
         removed_observations: full - a.observations,
         removals: layout.removed.iter().map(|r| r.describe(s)).collect(),

@@ -237,7 +237,8 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             };
             match convention {
                 Some(ConventionArg::Both) => Ok(render::check::render_both(
-                    &crate::check::check_both(&layout, &plan, &goal).map_err(|e| e.in_file(&path))?,
+                    &crate::check::check_both(&layout, &plan, &goal)
+                        .map_err(|e| e.in_file(&path))?,
                     format,
                 )),
                 other => {
@@ -434,15 +435,9 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     data: None,
                 }),
             };
-            let report = crate::report::compose(
-                &base,
-                &plan,
-                &goal,
-                command_line(),
-                problem,
-                monte_carlo,
-            )
-            .map_err(in_file)?;
+            let report =
+                crate::report::compose(&base, &plan, &goal, command_line(), problem, monte_carlo)
+                    .map_err(in_file)?;
             write_report(&report, output.as_deref(), markdown)
         }
     }

@@ -5,9 +5,9 @@
 use serde::Serialize;
 
 use crate::check::check_with_goal;
-use crate::findings::{CheckReport, DenominatorPart, TermReport};
 use crate::error::Error;
 use crate::errorterm::Verdict;
+use crate::findings::{CheckReport, DenominatorPart, TermReport};
 use crate::goal::Goal;
 use crate::layout::{Convention, Kind, Layout, RESTRICTED_UNBALANCED, SumsOfSquares};
 use crate::planning::{CostModel, Effect, PlanningValues, check_probability};

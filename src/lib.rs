@@ -5,16 +5,16 @@
 //! tested) -> the jobs (`check`, ...) -> `render`. `cli` is a thin shell over them.
 
 pub mod analyze;
-pub mod engine;
-pub mod findings;
 pub mod balanced;
 pub mod check;
 pub mod cli;
 pub mod compare;
 pub mod dist;
 pub mod ems;
+pub mod engine;
 pub mod error;
 pub mod errorterm;
+pub mod findings;
 pub mod goal;
 pub mod layout;
 pub mod planning;
@@ -24,6 +24,8 @@ pub mod report;
 pub mod search;
 pub mod simulate;
 pub mod spec;
-pub mod term;
 pub mod unbalanced;
 pub mod variant;
+
+/// The model's terms, part of the layout layer (`layout::term`).
+pub use layout::term;

@@ -427,7 +427,9 @@ impl CostModel {
     pub fn total(&self, mut units: impl FnMut(Mask) -> u64) -> f64 {
         priced_total(
             self.overhead,
-            self.per_unit.iter().map(|&(live, price)| (price, units(live))),
+            self.per_unit
+                .iter()
+                .map(|&(live, price)| (price, units(live))),
         )
     }
 
@@ -452,7 +454,10 @@ impl CostModel {
             })
             .collect();
         Cost {
-            total: priced_total(self.overhead, breakdown.iter().map(|l| (l.per_unit, l.units))),
+            total: priced_total(
+                self.overhead,
+                breakdown.iter().map(|l| (l.per_unit, l.units)),
+            ),
             overhead: self.overhead,
             breakdown,
         }

@@ -7,8 +7,8 @@
 //! change what is bought; an omitted interaction changes what is assumed, and is marked
 //! as an assumption with its risk.
 
-pub use crate::engine::Outcome;
 use crate::engine::Analysis;
+pub use crate::engine::Outcome;
 use crate::errorterm::Verdict;
 use crate::goal::Goal;
 use crate::layout::{Kind, Layout};

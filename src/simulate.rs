@@ -70,13 +70,12 @@ use rand_distr::{Distribution, StandardNormal};
 use rayon::prelude::*;
 use serde::Serialize;
 
-use crate::analyze::anova_numbers;
-use crate::balanced::{self, Balanced, index_in, odometer};
-use crate::engine::{Analysis, Coefficient, Synthesis};
-use crate::findings::DenominatorPart;
+use crate::balanced::{self, Balanced, anova_numbers, index_in, odometer};
 use crate::dist::{self, CriticalValue};
+use crate::engine::{Analysis, Coefficient, Synthesis};
 use crate::error::Error;
 use crate::errorterm::Verdict;
+use crate::findings::DenominatorPart;
 use crate::layout::{Convention, Kind, Layout, SumsOfSquares};
 use crate::planning::{self, Effect, PlanningValues, TestPlan};
 use crate::term::REPLICATE;
@@ -695,7 +694,13 @@ impl Simulator {
         let den = self.expected_denominator(test);
         self.noncentrality(test, ss)?;
         let critical = CriticalValue::new(self.alpha, test.df1, df2?);
-        let power = planning::power(&critical, Kind::Fixed, test.df1, ss.max(0.0) / test.df1, den);
+        let power = planning::power(
+            &critical,
+            Kind::Fixed,
+            test.df1,
+            ss.max(0.0) / test.df1,
+            den,
+        );
         power.is_finite().then_some(power)
     }
 

@@ -191,11 +191,7 @@ fn moment_estimates_agree_with_error_terms() {
         if a.model.kinds[t] != emsplan::layout::Kind::Random {
             continue;
         }
-        let d: f64 = e
-            .denominator
-            .iter()
-            .map(|(v, w)| w.value() * ms[*v])
-            .sum();
+        let d: f64 = e.denominator.iter().map(|(v, w)| w.value() * ms[*v]).sum();
         let own = a.coefficient(t, t);
         let want = (ms[t] - d) / own;
         let got = theta[t].unwrap();

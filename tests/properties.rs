@@ -575,7 +575,9 @@ fn the_draws_reach_every_case() {
         let layout = build(&d);
         let (model, ems, df) = ems_of(&layout);
         for test in error_terms(&model, &ems, &df).into_iter().flatten() {
-            *verdicts.entry(emsplan::render::check::code(test.verdict)).or_default() += 1;
+            *verdicts
+                .entry(emsplan::render::check::code(test.verdict))
+                .or_default() += 1;
         }
         let mut other = layout.structure.clone();
         other.convention = match other.convention {

@@ -484,7 +484,10 @@ fn rejection(r: &emsplan::search::SearchReport, reason: Rejection) -> (u64, Stri
         .iter()
         .find(|x| x.reason == reason)
         .unwrap_or_else(|| panic!("no {reason:?} rejection"));
-    (x.count, emsplan::render::search_words::why(x, &r.constraints))
+    (
+        x.count,
+        emsplan::render::search_words::why(x, &r.constraints),
+    )
 }
 
 /// Every reason a candidate can be turned down for, each counted and explained. The

@@ -5,8 +5,8 @@
 use std::collections::BTreeMap;
 
 use emsplan::check::check;
-use emsplan::findings::CheckReport;
 use emsplan::errorterm::Verdict;
+use emsplan::findings::CheckReport;
 use emsplan::layout::{Convention, Layout};
 use emsplan::planning::PlanningValues;
 
@@ -309,8 +309,10 @@ within = ["ration"]
     assert!(
         test.repairs
             .iter()
-            .any(|x| emsplan::render::words::change(&x.change).contains("2 levels of pen")
-                && !x.assumption),
+            .any(
+                |x| emsplan::render::words::change(&x.change).contains("2 levels of pen")
+                    && !x.assumption
+            ),
         "{:?}",
         test.repairs
     );

@@ -28,8 +28,8 @@ use emsplan::unbalanced::{Design, Fit};
 
 #[path = "common/synthesis.rs"]
 mod synthesis;
-use synthesis::Analysis;
 use proptest::prelude::*;
+use synthesis::Analysis;
 
 const TOLERANCE: f64 = 1e-9;
 

@@ -408,24 +408,35 @@ fn a_term_left_without_df_is_reported_with_what_it_takes_down() {
     assert!(
         warnings.iter().any(|w| w["kind"] == "lost_df"
             && w["term"] == "tank(temperature)"
-            && w["lost"].as_array().unwrap().iter().any(|l| l == "temperature")),
+            && w["lost"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .any(|l| l == "temperature")),
         "{warnings:?}"
     );
     // The reason is structured: σ²(tank) cannot be isolated, its term has no df left.
     let reason = &term(&v, "temperature")["test"]["reason"];
     assert_eq!(reason["kind"], "confounded");
     assert!(
-        reason["components"].as_array().unwrap().iter().any(|c| c["component"]
-            == "tank(temperature)"
-            && c["cause"]["kind"] == "zero_df_after_removals"),
+        reason["components"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|c| c["component"] == "tank(temperature)"
+                && c["cause"]["kind"] == "zero_df_after_removals"),
         "{reason}"
     );
     // A whole tank of a random nest may go: it is a unit not sampled, noted as such.
     let emptied = &v["unbalanced"]["emptied_units"];
     assert!(
-        emptied.as_array().unwrap().iter().any(|u| u["factor"] == "tank"
-            && u["level"] == 2
-            && u["within"] == serde_json::json!([["temperature", 1]])),
+        emptied
+            .as_array()
+            .unwrap()
+            .iter()
+            .any(|u| u["factor"] == "tank"
+                && u["level"] == 2
+                && u["within"] == serde_json::json!([["temperature", 1]])),
         "{emptied}"
     );
 }

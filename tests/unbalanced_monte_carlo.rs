@@ -25,11 +25,11 @@ use emsplan::unbalanced::Design;
 
 #[path = "common/synthesis.rs"]
 mod synthesis;
-use synthesis::Analysis;
 use nalgebra::{DMatrix, DVector};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, StandardNormal};
+use synthesis::Analysis;
 
 const DATA_SETS: usize = 20_000;
 const TOLERANCE_SE: f64 = 4.0;

@@ -41,11 +41,11 @@ use serde::Serialize;
 mod unbalanced;
 
 use crate::balanced::{Balanced, cell_summaries, index_in};
-use crate::engine::{Analysis, Coefficient};
-use crate::findings::DenominatorPart;
 use crate::dist;
+use crate::engine::{Analysis, Coefficient};
 use crate::error::Error;
 use crate::errorterm::Verdict;
+use crate::findings::DenominatorPart;
 use crate::layout::{Convention, Kind, Layout, SumsOfSquares};
 use crate::planning::satterthwaite;
 use crate::term::Mask;
@@ -597,20 +597,7 @@ fn cell_text(layout: &Layout, b: &Balanced, labels: &[Vec<Vec<String>>], cell: u
     describe(layout, labels, layout.structure.all_factors(), &at)
 }
 
-/// Mean squares and their parts for data in cell order: sums of squares, mean squares and
-/// the grand mean. Shared with `simulate`, whose data sets go through the same numbers.
-pub fn anova_numbers(b: &Balanced, y: &[f64]) -> (Vec<f64>, Vec<f64>, f64) {
-    let n = y.len() as f64;
-    let centre = y.iter().sum::<f64>() / n;
-    let mut totals = vec![0.0; b.cells()];
-    let within = cell_summaries(y, b.replicates(), centre, &mut totals);
-    let terms = b.df().len();
-    let mut ss = vec![0.0; terms];
-    b.sums_of_squares(&totals, within, &mut b.scratch(), &mut ss);
-    let mut ms = vec![0.0; terms];
-    b.mean_squares(&ss, &mut ms);
-    (ss, ms, centre)
-}
+pub use crate::balanced::anova_numbers;
 
 /// Coefficients smaller than this (relative to the row's largest) count as zero when
 /// deciding which moment equations can be used.
@@ -636,7 +623,9 @@ pub fn moment_estimates(a: &Analysis, ms: &[f64]) -> Vec<Option<f64>> {
         let before = usable.len();
         let inside = usable.clone();
         usable.retain(|&t| {
-            let largest = a.ems[t].iter().fold(0.0f64, |m, (_, x)| m.max(x.value().abs()));
+            let largest = a.ems[t]
+                .iter()
+                .fold(0.0f64, |m, (_, x)| m.max(x.value().abs()));
             a.ems[t]
                 .iter()
                 .filter(|(_, x)| x.value().abs() > ZERO * largest)
@@ -737,7 +726,10 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
 }
 
 /// A test's denominator with the terms named.
-pub(crate) fn denominator_parts(a: &Analysis, parts: &[(usize, Coefficient)]) -> Vec<DenominatorPart> {
+pub(crate) fn denominator_parts(
+    a: &Analysis,
+    parts: &[(usize, Coefficient)],
+) -> Vec<DenominatorPart> {
     let s = &a.layout.structure;
     parts
         .iter()

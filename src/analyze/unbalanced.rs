@@ -20,18 +20,16 @@
 //! Means are the raw means of the observations present, with their counts: with unequal
 //! counts they are not the least-squares (adjusted) means, and a note says so.
 
-
 use super::{
     AnalyzeReport, AnovaRow, Imbalance, MeanRow, MeansTable, Numbers, Observations,
     component_estimates, describe, planned_test,
 };
 use crate::balanced::{Balanced, index_in};
-use crate::engine::Analysis;
 use crate::ems::Model;
+use crate::engine::Analysis;
 use crate::error::Error;
 use crate::layout::{Convention, Kind, Layout};
 use crate::unbalanced::removal::{self, Removal};
-
 
 pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<AnalyzeReport, Error> {
     let s = &layout.structure;

@@ -223,11 +223,7 @@ pub fn verdict_text(c: &Comparison) -> String {
             parts.push(format!("power from {x:.2} to {y:.2}"));
         }
         if t.error_term_changed {
-            parts.push(format!(
-                "error term {} instead of {}",
-                over(o),
-                over(b)
-            ));
+            parts.push(format!("error term {} instead of {}", over(o), over(b)));
         }
         (!parts.is_empty()).then(|| parts.join(", "))
     };

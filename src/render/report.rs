@@ -69,8 +69,8 @@ pub fn html(report: &Report) -> String {
     let _ = write!(
         h,
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\"/>\n<title>{}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n<h1>{}</h1>\n",
-        esc(&r.title),
-        esc(&r.title)
+        esc(r.title),
+        esc(r.title)
     );
     let _ = writeln!(
         h,
@@ -259,7 +259,7 @@ pub fn html(report: &Report) -> String {
         h,
         "<p>Made by emsplan {}. To reproduce this report: <code>{}</code></p>",
         r.version,
-        esc(&r.command_line)
+        esc(r.command_line)
     );
     let _ = writeln!(
         h,
@@ -303,7 +303,7 @@ pub fn markdown(report: &Report, figure_prefix: &str) -> (String, Vec<(String, S
         "\n## Expected mean squares\n\nConvention: the {}.\n",
         convention_note(r.check.convention)
     );
-    m.push_str(&super::check::render(&r.check, super::Format::Markdown).replacen("## ", "### ", 1));
+    m.push_str(&super::check::render(r.check, super::Format::Markdown).replacen("## ", "### ", 1));
     match r.other_convention {
         None => {
             let _ = writeln!(m, "\n{UNBALANCED_CONVENTION}\n");
@@ -813,8 +813,11 @@ fn describe(layout: &Layout) -> Vec<String> {
     out
 }
 
-
-fn key_term(report: &crate::findings::CheckReport, k: &crate::report::KeyTerm, alpha: f64) -> KeyTerm {
+fn key_term(
+    report: &crate::findings::CheckReport,
+    k: &crate::report::KeyTerm,
+    alpha: f64,
+) -> KeyTerm {
     let t = &k.term;
     let test = t.test.as_ref();
     let scale = match t.kind {

@@ -2,10 +2,10 @@
 
 use super::num;
 use super::words;
+use crate::search::Rejection;
 use crate::search::report::{
     Binding, CandidateReport, Constraints, MustTestReport, Notes, RejectionReport, SearchReport,
 };
-use crate::search::Rejection;
 
 /// The caution at the end of every search.
 pub fn caution() -> String {

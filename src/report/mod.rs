@@ -137,7 +137,6 @@ pub fn build(
     })
 }
 
-
 fn key_term(fitted: &Analysis, plan: &PlanningValues, t: &TermReport) -> KeyTerm {
     let layout = &fitted.layout;
     let live = t.id;

@@ -208,7 +208,9 @@ impl Screen {
         };
         priced_total(
             self.overhead,
-            self.priced.iter().map(|&(subs, price)| (price, units(subs))),
+            self.priced
+                .iter()
+                .map(|&(subs, price)| (price, units(subs))),
         )
     }
 

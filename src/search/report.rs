@@ -7,8 +7,8 @@
 use serde::Serialize;
 
 use crate::check::check;
-use crate::findings::{DenominatorPart, Reason};
 use crate::errorterm::Verdict;
+use crate::findings::{DenominatorPart, Reason};
 use crate::layout::{Kind, Layout, Levels};
 
 use super::enumerate::{Entry, Tally};

@@ -5,7 +5,7 @@
 //! unequal numbers of observations. Here everything is computed numerically from the
 //! design matrices:
 //!
-//! - `removal`: which observations are missing, parsed and validated for `layout`;
+//! - `removal` (in `layout`): which observations are missing, parsed and validated;
 //! - `design`: the observations that are left and the cells of every term;
 //! - `fit`: the sums of squares (sequential or type III) as projections, their df from
 //!   ranks, and their expected mean squares by Hartley's (1967) method of synthesis;
@@ -21,7 +21,8 @@ mod blocked;
 pub mod denominator;
 pub mod design;
 pub mod fit;
-pub mod removal;
+/// Removals belong to the layout (`layout::removal`); re-exported where they are used.
+pub use crate::layout::removal;
 
 pub use denominator::{SynthesisTest, error_terms};
 pub use design::{Design, Observation};

@@ -14,7 +14,10 @@ use std::path::Path;
 use crate::error::Error;
 use crate::spec::{self, ConventionSpec, KindSpec, Spec, SumsOfSquaresSpec};
 use crate::term::{Mask, Term, parse_term_label};
-pub use crate::unbalanced::removal::Removal;
+pub mod removal;
+pub mod term;
+
+pub use removal::Removal;
 
 /// Why an unbalanced layout is not checked under the restricted convention.
 pub const RESTRICTED_UNBALANCED: &str = "the restricted convention (mixed interaction effects summing to zero over the fixed levels) is defined for balanced layouts; with cells removed the sums run over unequal numbers of observations and the model is not defined the same way, so emsplan uses the unrestricted model for unbalanced layouts: set convention = \"unrestricted\" or leave the key out";
@@ -220,7 +223,7 @@ impl Layout {
     /// unbalanced engine's size. Errors carry the line of the removal at fault.
     pub fn with_removals(mut self, removed: Vec<Removal>) -> Result<Self, (Option<usize>, String)> {
         self.removed = removed;
-        crate::unbalanced::removal::validate(&self)?;
+        removal::validate(&self)?;
         Ok(self)
     }
 
@@ -240,7 +243,7 @@ impl Layout {
         if self.is_balanced() {
             self.levels.observations()
         } else {
-            crate::unbalanced::removal::cell_counts(self).iter().sum()
+            removal::cell_counts(self).iter().sum()
         }
     }
 
