@@ -134,17 +134,14 @@ fn markdown_report_writes_its_figures() {
 }
 
 /// Opens each report in headless Chromium and checks every figure was laid out with a
-/// non-zero size. Skipped, with a message, where Chromium is not installed (.ci/run
-/// installs Debian's chromium package).
+/// non-zero size. Fails where Chromium is not installed: .ci/run installs Debian's
+/// chromium package, and a developer installs it with `apt-get install chromium`.
 #[test]
 fn figures_render_in_a_browser() {
-    let Some(browser) = ["/usr/bin/chromium", "/usr/bin/chromium-browser"]
+    let browser = ["/usr/bin/chromium", "/usr/bin/chromium-browser"]
         .into_iter()
         .find(|b| Path::new(b).exists())
-    else {
-        eprintln!("skipped: Chromium is not installed (apt-get install chromium)");
-        return;
-    };
+        .expect("Chromium is needed for this test: apt-get install chromium");
     for p in problems() {
         let (_, html, _) = report(&p, &[]);
         let probe = "<script>document.addEventListener('DOMContentLoaded',function(){var r=[];document.querySelectorAll('svg').forEach(function(s){var b=s.getBoundingClientRect();r.push(b.width+'x'+b.height);});document.body.setAttribute('data-figure-sizes',r.join(';'));});</script></body>";
