@@ -54,7 +54,7 @@ pub struct Side {
 }
 
 /// Applies one edit. Errors name the key and say what would be accepted.
-pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
+pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<EditNote>), Error> {
     let mut notes = Vec::new();
     let usage = |m: String| Error::Usage(m);
     match edit {
@@ -96,10 +96,10 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
                 .with_removals(removed)
                 .map_err(|(_, m)| usage(format!("--drop {name}: {m}")))?;
             if !gone.is_empty() {
-                notes.push(format!(
-                    "without {name}, these planning values no longer apply: {}",
-                    gone.join(", ")
-                ));
+                notes.push(EditNote::PlanningValuesGone {
+                    factor: name.clone(),
+                    terms: gone,
+                });
             }
             let goal = Goal {
                 must_test: side
@@ -109,10 +109,10 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
                     .filter_map(|&m| {
                         let r = crate::variant::remap_mask(m, f);
                         if r.is_none() {
-                            notes.push(format!(
-                                "the must-test term {} goes with {name}",
-                                crate::layout::term_of(s, m).short_label(s)
-                            ));
+                            notes.push(EditNote::MustTestGone {
+                                factor: name.clone(),
+                                term: crate::layout::term_of(s, m).short_label(s),
+                            });
                         }
                         r
                     })
@@ -130,9 +130,7 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
             let mut layout = l.clone();
             if layout.structure.convention == Convention::Restricted {
                 layout.structure.convention = Convention::Unrestricted;
-                notes.push(
-                    "with cells removed the layout is unbalanced, and the restricted convention is not defined there: the unrestricted model is used".into(),
-                );
+                notes.push(EditNote::UnrestrictedAfterRemoval);
             }
             let layout = layout.with_removals(removed).map_err(|(_, m)| bad(m))?;
             Ok((
@@ -348,33 +346,43 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<String>), Error> {
 
 /// After a change of kind, priors of terms that became fixed and effects of terms that
 /// became random no longer apply; drop them and say so.
-fn reconcile_kinds(plan: &mut PlanningValues, layout: &Layout) -> Vec<String> {
+fn reconcile_kinds(plan: &mut PlanningValues, layout: &Layout) -> Vec<EditNote> {
     let s = &layout.structure;
     let mut notes = Vec::new();
     let label = |m: Mask| crate::layout::term_of(s, m).short_label(s);
     plan.priors.retain(|&m, _| {
         let keep = m == REPLICATE || crate::layout::term_of(s, m).kind(s) == Kind::Random;
         if !keep {
-            notes.push(format!(
-                "{} is now fixed: its prior no longer applies (give an effect with --set effect.{}=...)",
-                label(m),
-                label(m)
-            ));
+            notes.push(EditNote::NowFixed { term: label(m) });
         }
         keep
     });
     plan.effects.retain(|&m, _| {
         let keep = crate::layout::term_of(s, m).kind(s) == Kind::Fixed;
         if !keep {
-            notes.push(format!(
-                "{} is now random: its effect no longer applies (give a standard deviation with --set prior.{}=...)",
-                label(m),
-                label(m)
-            ));
+            notes.push(EditNote::NowRandom { term: label(m) });
         }
         keep
     });
     notes
+}
+
+/// What an edit or the comparison itself changes beyond what was asked.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+pub enum EditNote {
+    /// Planning values of the terms that went with a dropped factor.
+    PlanningValuesGone { factor: String, terms: Vec<String> },
+    /// A must-test term that went with a dropped factor.
+    MustTestGone { factor: String, term: String },
+    /// Removing cells made a restricted layout unbalanced: the unrestricted model.
+    UnrestrictedAfterRemoval,
+    /// A term made fixed: its standard deviation no longer applies.
+    NowFixed { term: String },
+    /// A term made random: its effect no longer applies.
+    NowRandom { term: String },
+    /// One side is unbalanced, so both are computed under the unrestricted model.
+    BothUnrestricted,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
@@ -422,7 +430,7 @@ pub struct Comparison {
     pub base: CheckReport,
     pub other: CheckReport,
     pub changes: Vec<String>,
-    pub notes: Vec<String>,
+    pub notes: Vec<EditNote>,
     pub terms: Vec<TermComparison>,
     pub cost: CostComparison,
 }
@@ -432,7 +440,7 @@ pub fn compare(
     base: &Side,
     other: &Side,
     changes: Vec<String>,
-    notes: Vec<String>,
+    notes: Vec<EditNote>,
     convention: Option<Convention>,
 ) -> Result<Comparison, Error> {
     let mut notes = notes;
@@ -449,9 +457,7 @@ pub fn compare(
             .iter()
             .any(|x| x.layout.structure.convention == Convention::Restricted)
         {
-            notes.push(
-                "one side is unbalanced, so both sides are computed under the unrestricted model (the restricted model is not defined for unbalanced layouts)".into(),
-            );
+            notes.push(EditNote::BothUnrestricted);
         }
         Some(Convention::Unrestricted)
     } else {

@@ -1023,7 +1023,7 @@ pub struct SimulateReport {
     pub terms: Vec<SimulatedTerm>,
     /// The data set written with `--data`, when there is one.
     pub data: Option<DataSummary>,
-    pub notes: Vec<String>,
+    pub notes: Vec<SimulationNote>,
 }
 
 /// The removals of an unbalanced layout, as simulated.
@@ -1335,10 +1335,9 @@ pub fn simulate(
         .map(|(t, _)| labels[t].as_str())
         .collect();
     if !no_prior.is_empty() {
-        notes.push(format!(
-            "simulated with no variance, having no [prior]: {}",
-            no_prior.join(", ")
-        ));
+        notes.push(SimulationNote::NoVariance {
+            terms: no_prior.iter().map(|t| t.to_string()).collect(),
+        });
     }
     let no_effect: Vec<&str> = model
         .terms
@@ -1352,10 +1351,9 @@ pub fn simulate(
         .map(|(t, _)| labels[t].as_str())
         .collect();
     if !no_effect.is_empty() {
-        notes.push(format!(
-            "simulated with no effect, having no [effect]: {}",
-            no_effect.join(", ")
-        ));
+        notes.push(SimulationNote::NoEffect {
+            terms: no_effect.iter().map(|t| t.to_string()).collect(),
+        });
     }
     if let Some(kept) = &sim.kept {
         notes.extend(unbalanced_notes(
@@ -1427,6 +1425,28 @@ pub fn simulate(
     ))
 }
 
+/// What a simulation notes about how it was run and what its figures mean.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+pub enum SimulationNote {
+    /// Random terms simulated with no variance (no standard deviation given).
+    NoVariance { terms: Vec<String> },
+    /// Fixed terms simulated with no effect (no effect given).
+    NoEffect { terms: Vec<String> },
+    /// An unbalanced layout: how its data sets and expectations are made, and that its
+    /// F ratios are approximations.
+    Unbalanced,
+    /// Fixed terms whose analytic power for the simulated pattern differs from the
+    /// average over patterns `check` gives: (term, check's, here).
+    PatternPower { terms: Vec<(String, f64, f64)> },
+    /// A fixed term's null data sets still carry other fixed terms' effects.
+    NullCarries {
+        term: String,
+        sums_of_squares: SumsOfSquares,
+        null_rate: f64,
+    },
+}
+
 /// What the report says of an unbalanced layout's simulation: how the data sets and their
 /// expectations are made, the fixed terms' power for the simulated pattern against the
 /// average `check` gives, and the null data sets that still carry other fixed effects.
@@ -1437,11 +1457,8 @@ fn unbalanced_notes(
     plans: &[Option<TestPlan>],
     averaged: &[Option<f64>],
     layout: &Layout,
-) -> Vec<String> {
-    let mut notes = vec![
-        "unbalanced layout: each data set is drawn over the full layout and the removed observations are dropped; expected mean squares are Hartley's (1967) synthesis coefficients times the priors, plus the fixed effects' part computed exactly for the simulated effect pattern (μ'Aμ / df)".to_string(),
-        "in an unbalanced layout mean squares are not scaled chi-squares in general, so F and quasi-F ratios, Satterthwaite df and the analytic power (of random terms too) are approximations; the simulated rates show how close they are here".to_string(),
-    ];
+) -> Vec<SimulationNote> {
+    let mut notes = vec![SimulationNote::Unbalanced];
     let mut differs = Vec::new();
     for test in &sim.tests {
         let t = test.term;
@@ -1451,14 +1468,11 @@ fn unbalanced_notes(
         ) && matches!(test.own, Own::Fixed(_))
             && (mine - theirs).abs() >= 0.0005
         {
-            differs.push(format!("{} {theirs:.3} (here {mine:.3})", labels[t]));
+            differs.push((labels[t].clone(), *theirs, mine));
         }
     }
     if !differs.is_empty() {
-        notes.push(format!(
-            "the analytic power of a fixed term is for the simulated effect pattern (noncentrality SS of the noise-free means / E(denominator)); `emsplan check` averages over effect patterns of the planned size: {}",
-            differs.join(", ")
-        ));
+        notes.push(SimulationNote::PatternPower { terms: differs });
     }
     for (test, &ss) in sim.tests.iter().zip(&kept.null_fixed_ss) {
         let t = test.term;
@@ -1470,15 +1484,11 @@ fn unbalanced_notes(
             continue;
         };
         if rate - sim.alpha >= 0.0005 {
-            notes.push(format!(
-                "under its null, MS[{}] still carries other fixed terms' effects ({}), so its analytic null rate at the simulated pattern is {rate:.3}, not alpha",
-                labels[t],
-                match layout.sums_of_squares {
-                    SumsOfSquares::Sequential =>
-                        "sequential sums of squares adjust it only for the terms fitted before it",
-                    SumsOfSquares::Type3 => "its type III hypothesis involves them",
-                }
-            ));
+            notes.push(SimulationNote::NullCarries {
+                term: labels[t].clone(),
+                sums_of_squares: layout.sums_of_squares,
+                null_rate: rate,
+            });
         }
     }
     notes

@@ -130,7 +130,7 @@ fn crossed_layout_against_statsmodels() {
     assert!(
         r.notes
             .iter()
-            .any(|n| n.contains("negative variance component"))
+            .any(|n| matches!(n, emsplan::analyze::Note::NegativeComponents { .. }))
     );
 }
 

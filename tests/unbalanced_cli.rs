@@ -145,7 +145,9 @@ fn compare_remove_one_chamber() {
             .as_array()
             .unwrap()
             .iter()
-            .any(|n| n.as_str().unwrap().contains("unrestricted"))
+            .any(|n| n["kind"] == "both_unrestricted" || n["kind"] == "unrestricted_after_removal"),
+        "{}",
+        v["notes"]
     );
     // Removals stack with other changes, and a second removal of a single pot adds one.
     let v = json(&[

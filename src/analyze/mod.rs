@@ -109,7 +109,7 @@ pub struct AnalyzeReport {
     pub components: Vec<ComponentEstimate>,
     pub means: Vec<MeansTable>,
     /// What needs attention: negative estimates, synthetic denominators below zero, ...
-    pub notes: Vec<String>,
+    pub notes: Vec<Note>,
 }
 
 /// Unbalanced data: what is missing, and which sums of squares were used.
@@ -183,7 +183,43 @@ pub struct MeanRow {
 }
 
 /// The advice that goes with a negative variance component estimate.
-pub const NEGATIVE_ADVICE: &str = "a negative estimate says the variance is small next to its sampling error; common practice is to report it as zero and to consider a model without the term (pooling its mean square into its error term), a choice best made with a statistician";
+/// What the analysis notes about the data and the results.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(tag = "kind", rename_all = "snake_case")]
+pub enum Note {
+    /// Rows with no response value, left out (their line numbers).
+    MissingResponses { lines: Vec<usize> },
+    /// The layout removes cells or observations, but the data hold every one.
+    FullDataForRemovals { removals: usize },
+    /// A restricted layout's unbalanced data, analysed under the unrestricted model.
+    RestrictedAsUnrestricted,
+    /// Units the data have no observation of, nest by nest.
+    LostUnits { units: Vec<LostUnit>, more: usize },
+    /// The data hold observations the layout removes (the first of them, by level).
+    ExtraObservations { at: Vec<(String, String)> },
+    /// A combined denominator that is not positive for these data.
+    NoQuasiF { term: String, denominator: f64 },
+    /// An error term whose mean square is zero for these data.
+    ZeroErrorMeanSquare { term: String },
+    /// With unbalanced data, tests over anything but the residual are approximate.
+    ApproximateTests,
+    /// Negative moment estimates.
+    NegativeComponents { terms: Vec<String> },
+    /// Components no usable moment equation determines.
+    NotEstimable { terms: Vec<String> },
+    /// The means are raw means of unbalanced data.
+    RawMeans,
+}
+
+/// A factor with fewer levels observed than the layout declares, in one nest.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LostUnit {
+    pub factor: String,
+    /// The nest: each ancestor factor with its label.
+    pub within: Vec<(String, String)>,
+    pub observed: Vec<String>,
+    pub levels: usize,
+}
 
 /// Reads a long-format CSV file of a layout's observations: every row in one of the
 /// layout's cells, no cell with more than its replicates (fewer, or none, make the data
@@ -569,6 +605,20 @@ pub(crate) fn describe(
     mask: Mask,
     at: &[usize],
 ) -> String {
+    level_pairs(layout, labels, mask, at)
+        .iter()
+        .map(|(f, l)| format!("{f} = {l}"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// (factor, label) of each factor in `mask` at the levels `at`.
+pub(crate) fn level_pairs(
+    layout: &Layout,
+    labels: &[Vec<Vec<String>>],
+    mask: Mask,
+    at: &[usize],
+) -> Vec<(String, String)> {
     let s = &layout.structure;
     let levels: Vec<usize> = layout
         .levels
@@ -585,10 +635,9 @@ pub(crate) fn describe(
                 .and_then(|l| l.get(at[j]))
                 .cloned()
                 .unwrap_or_else(|| format!("level {}", at[j] + 1));
-            format!("{} = {label}", s.factors[j].name)
+            (s.factors[j].name.clone(), label)
         })
-        .collect::<Vec<_>>()
-        .join(", ")
+        .collect()
 }
 
 fn cell_text(layout: &Layout, b: &Balanced, labels: &[Vec<Vec<String>>], cell: usize) -> String {
@@ -668,10 +717,9 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
     let labels: Vec<String> = a.model.terms.iter().map(|t| t.label(s)).collect();
     let mut notes = data_notes(data);
     if !layout.removed.is_empty() {
-        notes.push(format!(
-            "the layout removes {} but the data hold every observation of the full layout: they are analysed as the balanced data they are",
-            plural(layout.removed.len(), "cell or observation", "cells or observations")
-        ));
+        notes.push(Note::FullDataForRemovals {
+            removals: layout.removed.len(),
+        });
     }
 
     let terms: Vec<AnovaRow> = a
@@ -742,40 +790,13 @@ pub(crate) fn denominator_parts(
 }
 
 /// Notes on what was read: rows left out for a missing response.
-pub(crate) fn data_notes(data: &Observations) -> Vec<String> {
-    const SHOWN: usize = 10;
+pub(crate) fn data_notes(data: &Observations) -> Vec<Note> {
     if data.missing_lines.is_empty() {
         return Vec::new();
     }
-    let mut lines: Vec<String> = data
-        .missing_lines
-        .iter()
-        .take(SHOWN)
-        .map(|l| l.to_string())
-        .collect();
-    if data.missing_lines.len() > SHOWN {
-        lines.push("...".into());
-    }
-    vec![format!(
-        "{} no response value and {} left out (line{} {})",
-        plural(data.missing_lines.len(), "row has", "rows have"),
-        if data.missing_lines.len() == 1 {
-            "is"
-        } else {
-            "are"
-        },
-        if data.missing_lines.len() == 1 {
-            ""
-        } else {
-            "s"
-        },
-        lines.join(", ")
-    )]
-}
-
-/// `1 cell` or `3 cells`.
-pub(crate) fn plural(n: usize, one: &str, many: &str) -> String {
-    format!("{n} {}", if n == 1 { one } else { many })
+    vec![Note::MissingResponses {
+        lines: data.missing_lines.clone(),
+    }]
 }
 
 /// Every term's mean square (NaN for 0 df) and df, the residual last.
@@ -795,7 +816,7 @@ pub(crate) fn planned_test(
     x: Numbers,
     t: usize,
     label: &str,
-    notes: &mut Vec<String>,
+    notes: &mut Vec<Note>,
 ) -> AnovaTest {
     let mut out = AnovaTest {
         verdict,
@@ -827,13 +848,14 @@ pub(crate) fn planned_test(
             out.p = Some(dist::f_sf(f, x.df[t] as f64, df2));
         }
     } else if verdict == Verdict::QuasiF {
-        notes.push(format!(
-            "{label}: the combined denominator is {d:.4} for these data (a combination of mean squares with negative weights), so there is no quasi-F; the terms it subtracts are large next to those it adds"
-        ));
+        notes.push(Note::NoQuasiF {
+            term: label.to_string(),
+            denominator: d,
+        });
     } else {
-        notes.push(format!(
-            "{label}: its error term's mean square is zero for these data, so there is no F"
-        ));
+        notes.push(Note::ZeroErrorMeanSquare {
+            term: label.to_string(),
+        });
     }
     out
 }
@@ -843,7 +865,7 @@ pub(crate) fn component_estimates(
     model: &crate::ems::Model,
     labels: &[String],
     theta: &[Option<f64>],
-    notes: &mut Vec<String>,
+    notes: &mut Vec<Note>,
 ) -> Vec<ComponentEstimate> {
     let components: Vec<ComponentEstimate> = (0..model.terms.len())
         .filter(|&t| model.kinds[t] == Kind::Random)
@@ -860,27 +882,21 @@ pub(crate) fn component_estimates(
             }
         })
         .collect();
-    let negatives: Vec<&str> = components
+    let negatives: Vec<String> = components
         .iter()
         .filter(|c| c.negative)
-        .map(|c| c.term.as_str())
+        .map(|c| c.term.clone())
         .collect();
     if !negatives.is_empty() {
-        notes.push(format!(
-            "negative variance component estimate for {}: {NEGATIVE_ADVICE}",
-            negatives.join(", ")
-        ));
+        notes.push(Note::NegativeComponents { terms: negatives });
     }
-    let missing: Vec<&str> = components
+    let missing: Vec<String> = components
         .iter()
         .filter(|c| c.estimate.is_none())
-        .map(|c| c.term.as_str())
+        .map(|c| c.term.clone())
         .collect();
     if !missing.is_empty() {
-        notes.push(format!(
-            "not estimable from these mean squares: {} (a term with 0 df, or one whose expected mean square needs such a term)",
-            missing.join(", ")
-        ));
+        notes.push(Note::NotEstimable { terms: missing });
     }
     components
 }

@@ -21,8 +21,8 @@
 //! counts they are not the least-squares (adjusted) means, and a note says so.
 
 use super::{
-    AnalyzeReport, AnovaRow, Imbalance, MeanRow, MeansTable, Numbers, Observations,
-    component_estimates, describe, planned_test,
+    AnalyzeReport, AnovaRow, Imbalance, LostUnit, MeanRow, MeansTable, Note, Numbers, Observations,
+    component_estimates, describe, level_pairs, planned_test,
 };
 use crate::balanced::{Balanced, index_in};
 use crate::ems::Model;
@@ -69,7 +69,7 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
 
     let mut notes = super::data_notes(data);
     if s.convention == Convention::Restricted {
-        notes.push("the layout's restricted convention is defined for balanced data only; these unbalanced data are analysed under the unrestricted model".into());
+        notes.push(Note::RestrictedAsUnrestricted);
     }
     notes.extend(lost_units(layout, data, &shape));
     if !layout.removed.is_empty() {
@@ -77,10 +77,9 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
         if let Some(c) = (0..declared.len()).find(|&c| data.counts[c] as u64 > declared[c]) {
             let mut at = vec![0usize; s.factors.len()];
             shape.levels_of_cell(c, &mut at);
-            notes.push(format!(
-                "the data hold observations the layout file removes (the first at {}): they are analysed as the data are",
-                describe(layout, &data.labels, s.all_factors(), &at)
-            ));
+            notes.push(Note::ExtraObservations {
+                at: level_pairs(layout, &data.labels, s.all_factors(), &at),
+            });
         }
     }
 
@@ -122,14 +121,14 @@ pub fn analyze(layout: &Layout, data: &Observations, alpha: f64) -> Result<Analy
                     .any(|d| d.term != labels[model.residual()])
         })
     }) {
-        notes.push("with unbalanced data the mean squares are not independent scaled chi-squares, so a test over anything but the residual is approximate even when its error term matches exactly: read its p as a guide".into());
+        notes.push(Note::ApproximateTests);
     }
 
     let theta = super::moment_estimates(&a, &ms);
     let components = component_estimates(model, &labels, &theta, &mut notes);
     let means = raw_means(layout, model, data, &shape);
     if !means.is_empty() {
-        notes.push("the means are raw means of the observations present; with unequal counts they are not least-squares (adjusted) means, so compare them with care".into());
+        notes.push(Note::RawMeans);
     }
 
     let full = layout.levels.observations();
@@ -245,7 +244,7 @@ fn data_layout(layout: &Layout, data: &Observations, shape: &Balanced) -> Result
 /// observed than the layout declares, within a nest that has observations (a lost chamber,
 /// a missing bench). Labels exist only for levels observed, so the missing ones are
 /// counted, not named.
-fn lost_units(layout: &Layout, data: &Observations, shape: &Balanced) -> Vec<String> {
+fn lost_units(layout: &Layout, data: &Observations, shape: &Balanced) -> Vec<Note> {
     const SHOWN: usize = 8;
     let s = &layout.structure;
     let levels = shape.levels();
@@ -264,21 +263,12 @@ fn lost_units(layout: &Layout, data: &Observations, shape: &Balanced) -> Vec<Str
                     rest /= levels[g];
                 }
             }
-            let within = if factor.ancestors == 0 {
-                String::new()
-            } else {
-                format!(
-                    " within {}",
-                    describe(layout, &data.labels, factor.ancestors, &at)
-                )
-            };
-            lost.push(format!(
-                "{}{within}: {} of its {} levels observed ({})",
-                factor.name,
-                present.len(),
-                levels[f],
-                present.join(", ")
-            ));
+            lost.push(LostUnit {
+                factor: factor.name.clone(),
+                within: level_pairs(layout, &data.labels, factor.ancestors, &at),
+                observed: present.clone(),
+                levels: levels[f],
+            });
         }
     }
     if lost.is_empty() {
@@ -286,11 +276,7 @@ fn lost_units(layout: &Layout, data: &Observations, shape: &Balanced) -> Vec<Str
     }
     let more = lost.len().saturating_sub(SHOWN);
     lost.truncate(SHOWN);
-    let mut text = format!("units with no observation at all: {}", lost.join("; "));
-    if more > 0 {
-        text.push_str(&format!("; and {more} more"));
-    }
-    vec![text]
+    vec![Note::LostUnits { units: lost, more }]
 }
 
 /// Raw means of every fixed term's cells that hold observations, with their counts.

@@ -1,7 +1,8 @@
 //! Rendering of `analyze` results.
 
+use super::analyze_words::NEGATIVE_ADVICE;
 use super::{Format, csv_table, json, markdown_table, text_table};
-use crate::analyze::{AnalyzeReport, AnovaRow, MeansTable, NEGATIVE_ADVICE};
+use crate::analyze::{AnalyzeReport, AnovaRow, MeansTable};
 use crate::errorterm::Verdict;
 use crate::layout::{Kind, SumsOfSquares};
 
@@ -224,7 +225,7 @@ pub fn render(r: &AnalyzeReport, format: Format) -> String {
             }
             if !r.notes.is_empty() {
                 out.push_str("\n### What needs attention\n\n");
-                for n in &r.notes {
+                for n in r.notes.iter().map(super::analyze_words::note) {
                     out.push_str(&format!("- {n}\n"));
                 }
             }
@@ -262,7 +263,7 @@ pub fn render(r: &AnalyzeReport, format: Format) -> String {
             }
             if !r.notes.is_empty() {
                 out.push_str("\nWhat needs attention:\n");
-                for n in &r.notes {
+                for n in r.notes.iter().map(super::analyze_words::note) {
                     out.push_str(&format!("  - {n}\n"));
                 }
             }

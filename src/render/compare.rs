@@ -2,7 +2,28 @@
 
 use super::words::CAUTION;
 use super::{Format, csv_table, json, markdown_table, num, text_table};
-use crate::compare::{Comparison, SideTest, Status, TermComparison};
+use crate::compare::{Comparison, EditNote, SideTest, Status, TermComparison};
+
+/// A note of the comparison in words.
+pub fn edit_note(n: &EditNote) -> String {
+    match n {
+        EditNote::PlanningValuesGone { factor, terms } => format!(
+            "without {factor}, these planning values no longer apply: {}",
+            terms.join(", ")
+        ),
+        EditNote::MustTestGone { factor, term } => {
+            format!("the must-test term {term} goes with {factor}")
+        }
+        EditNote::UnrestrictedAfterRemoval => "with cells removed the layout is unbalanced, and the restricted convention is not defined there: the unrestricted model is used".into(),
+        EditNote::NowFixed { term } => format!(
+            "{term} is now fixed: its standard deviation no longer applies (give an effect with --set effect.{term}=...)"
+        ),
+        EditNote::NowRandom { term } => format!(
+            "{term} is now random: its effect no longer applies (give a standard deviation with --set sd.{term}=...)"
+        ),
+        EditNote::BothUnrestricted => "one side is unbalanced, so both sides are computed under the unrestricted model (the restricted model is not defined for unbalanced layouts)".into(),
+    }
+}
 
 /// What a side's term is tested over, in words.
 fn over(t: &SideTest) -> String {
@@ -121,7 +142,7 @@ pub fn render(c: &Comparison, format: Format) -> String {
             });
             let bullet = if md { "- " } else { "  note: " };
             out.push('\n');
-            for n in &c.notes {
+            for n in c.notes.iter().map(edit_note) {
                 out.push_str(&format!("{bullet}{n}\n"));
             }
             let base_notes = super::words::planning_notes(&c.base.planning_gaps);

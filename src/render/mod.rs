@@ -2,6 +2,7 @@
 //! text; none computes statistics.
 
 pub mod analyze;
+pub mod analyze_words;
 pub mod check;
 pub mod compare;
 pub mod report;

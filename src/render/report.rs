@@ -431,11 +431,16 @@ pub fn monte_carlo_section(r: &crate::simulate::SimulateReport) -> (String, Stri
         html.push_str("</tr>\n");
     }
     html.push_str("</table>\n");
-    for n in &r.notes {
+    let notes: Vec<String> = r
+        .notes
+        .iter()
+        .map(super::analyze_words::simulation_note)
+        .collect();
+    for n in &notes {
         let _ = writeln!(html, "<p>Note: {}</p>", esc(n));
     }
     let mut md = format!("{intro}\n\n{}", super::markdown_table(&header, rows));
-    for n in &r.notes {
+    for n in &notes {
         let _ = write!(md, "\nNote: {n}\n");
     }
     ("Monte Carlo confirmation".into(), html, md)

@@ -246,7 +246,7 @@ fn explanation(r: &SimulateReport) -> Vec<String> {
             ));
         }
     }
-    out.extend(r.notes.iter().cloned());
+    out.extend(r.notes.iter().map(super::analyze_words::simulation_note));
     out
 }
 
