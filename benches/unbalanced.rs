@@ -1,7 +1,10 @@
 //! Speed of the unbalanced engine: synthesis of the expected mean squares for a layout of
 //! 2,000 observations (less a few removed) and 12 terms, 1,000 non-empty cells.
 //!
-//! `cargo bench --bench unbalanced`. Target: either synthesis under a second.
+//! `cargo bench --bench unbalanced`. Target: either synthesis under a second. The sums of
+//! squares of one response through a fitted layout are timed too (what `simulate` does
+//! for every data set of a Monte Carlo run, and `analyze` once), with the response around
+//! 10,000,000 as a measured quantity often is.
 
 use std::hint::black_box;
 
@@ -92,6 +95,21 @@ fn bench(c: &mut Criterion) {
     group.bench_function("analysis: design, synthesis, error terms", |b| {
         b.iter(|| Analysis::new(black_box(&l)).unwrap())
     });
+    // A response of the design's size around 1e7: a pattern over the cells plus a
+    // deterministic spread within them (no generator needed).
+    let y: Vec<f64> = (0..design.len())
+        .map(|i| 1e7 + ((i * 7919) % 101) as f64 / 37.0 + (i % 13) as f64)
+        .collect();
+    for kind in [SumsOfSquares::Sequential, SumsOfSquares::Type3] {
+        let fit = Fit::new(&design, kind);
+        let name = match kind {
+            SumsOfSquares::Sequential => "sums of squares of one response (sequential)",
+            SumsOfSquares::Type3 => "sums of squares of one response (type III)",
+        };
+        group.bench_function(name, |b| {
+            b.iter(|| fit.sums_of_squares(&design, black_box(&y)))
+        });
+    }
     let spec = emsplan::spec::parse(LAYOUT).unwrap();
     let plan = PlanningValues::from_spec(&spec, LAYOUT, &l).unwrap();
     group.bench_function("check with power", |b| {

@@ -31,8 +31,15 @@
 //! The computations run over the non-empty cells of the full layout (see `design`):
 //! vectors are scaled by √n_c, so that the Euclidean inner product over cells is the one
 //! over observations.
+//!
+//! A response's sums of squares are projections of its cell means centred on the grand
+//! mean (every A here annihilates the constant, the intercept being in every model), the
+//! residual is the within-cell sum of squares plus what the model leaves of the cell means,
+//! and the cell term fitted last is the norm of an explicit residual vector: nothing is a
+//! difference of uncentred totals, so a response near 1e7 keeps the digits of one near 0
+//! (see `Fit::sums_of_squares`).
 
-use nalgebra::DMatrix;
+use nalgebra::{DMatrix, DVector};
 
 use crate::layout::{Kind, SumsOfSquares};
 
@@ -430,6 +437,52 @@ fn type3_blocks(
     out
 }
 
+/// A response summarised by the cells of the layout in one pass: the cell means centred
+/// on the weighted grand mean and scaled by √n_c, v_c = √n_c (ȳ_c - ȳ), and the
+/// within-cell sum of squares Σ_c Σ_i (y_ci - ȳ_c)².
+///
+/// Welford's (1962, "Note on a method for calculating corrected sums of squares and
+/// products", Technometrics 4:419-420) update, on the responses less the first one (a
+/// difference of two doubles within a factor of two of each other is exact, Sterbenz 1974,
+/// so a response far from zero loses nothing there): for the n-th observation d of a cell,
+/// δ = d - m, m += δ / n, W += δ (d - m). The grand mean of the cell means is corrected
+/// once (ȳ += Σ n_c (ȳ_c - ȳ) / N) so that v sums to zero with the weights √n_c to
+/// rounding.
+struct CellMeans {
+    centred: DVector<f64>,
+    within: f64,
+}
+
+impl CellMeans {
+    fn of(design: &Design, y: &[f64]) -> CellMeans {
+        debug_assert_eq!(y.len(), design.len());
+        let m = design.rows();
+        let reference = y.first().copied().unwrap_or(0.0);
+        let mut seen = vec![0.0f64; m];
+        let mut mean = vec![0.0f64; m];
+        let mut within = 0.0;
+        for (i, &value) in y.iter().enumerate() {
+            let row = design.observation_row(i);
+            let d = value - reference;
+            seen[row] += 1.0;
+            let delta = d - mean[row];
+            mean[row] += delta / seen[row];
+            within += delta * (d - mean[row]);
+        }
+        let n: f64 = (0..m).map(|r| design.row_count(r)).sum();
+        let weighted = |g: f64| -> f64 {
+            (0..m)
+                .map(|r| design.row_count(r) * (mean[r] - g))
+                .sum::<f64>()
+                / n
+        };
+        let first = weighted(0.0);
+        let grand = first + weighted(first);
+        let centred = DVector::from_fn(m, |r, _| design.row_count(r).sqrt() * (mean[r] - grand));
+        CellMeans { centred, within }
+    }
+}
+
 impl Fit {
     /// Fits the layout's terms and finds the blocks of its sums of squares.
     pub fn new(design: &Design, sums_of_squares: SumsOfSquares) -> Fit {
@@ -508,43 +561,86 @@ impl Fit {
 
     /// The sum of squares of every model term (0 for a term with no df) and of the
     /// residual, for a response given in the order of `Design::observations`.
+    ///
+    /// Every model sum of squares is a projection of the cell means, and the intercept is
+    /// in every model, so the projections are taken of the cell means centred on the
+    /// weighted grand mean, v_c = √n_c (ȳ_c - ȳ) (see `CellMeans`): the same sums of
+    /// squares, without squaring the response's location. Nothing is found as a
+    /// difference of totals:
+    ///
+    /// - a block with a basis Q: ||Q'v||²;
+    /// - the cell term fitted last (held implicitly): ||r||², with r = v less its
+    ///   projection on the intercept and every sequential block, taken off block by block
+    ///   and taken off again when that cancelled most of v (re-orthogonalisation by the
+    ///   criterion of Daniel, Gragg, Kaufman and Stewart 1976, "Reorthogonalization and
+    ///   stable algorithms for updating the Gram-Schmidt QR factorization", Math. Comp.
+    ///   30: repeat while ||r|| falls below ||r_before|| / √2);
+    /// - the residual: Σ_c Σ_i (y_ci - ȳ_c)², the within-cell sum of squares, plus ||r||²
+    ///   when the model does not span every cell (an interaction assumed absent pools the
+    ///   part of the cell means outside the model into the residual).
     pub fn sums_of_squares(&self, design: &Design, y: &[f64]) -> Vec<f64> {
-        let m = design.rows();
-        let mut totals = vec![0.0; m];
-        let mut squares = 0.0;
-        for (i, &v) in y.iter().enumerate() {
-            totals[design.observation_row(i)] += v;
-            squares += v * v;
-        }
-        let scaled = DMatrix::from_fn(m, 1, |r, _| totals[r] / design.row_count(r).sqrt());
-        let cells_ss = scaled.norm_squared();
-        let ss_of = |q: &DMatrix<f64>| (q.transpose() * &scaled).norm_squared();
-        let intercept_ss = ss_of(&self.intercept);
-        let sequential: Vec<f64> = self
-            .sequential
-            .iter()
-            .map(|b| match b {
-                Block::Basis(q) => ss_of(q),
-                _ => 0.0,
-            })
-            .collect();
-        let rest = cells_ss - intercept_ss - sequential.iter().sum::<f64>();
-        let model_ss = if self.full {
-            cells_ss
+        let cells = CellMeans::of(design, y);
+        let v = &cells.centred;
+        let ss_of = |q: &DMatrix<f64>| q.tr_mul(v).norm_squared();
+        let rest_reported = self.reported.iter().any(|b| matches!(b, Block::Rest));
+        let (sequential, outside) = if rest_reported || !self.full {
+            self.outside_model(v)
         } else {
-            intercept_ss + sequential.iter().sum::<f64>()
+            let ss = self
+                .sequential
+                .iter()
+                .map(|b| match b {
+                    Block::Basis(q) => ss_of(q),
+                    _ => 0.0,
+                })
+                .collect();
+            (ss, 0.0)
         };
         let mut out: Vec<f64> = self
             .reported
             .iter()
-            .map(|b| match b {
+            .enumerate()
+            .map(|(t, b)| match b {
+                Block::Basis(_) if self.sums_of_squares == SumsOfSquares::Sequential => {
+                    sequential[t]
+                }
                 Block::Basis(q) => ss_of(q),
-                Block::Rest => rest.max(0.0),
+                Block::Rest => outside,
                 Block::Empty => 0.0,
             })
             .collect();
-        out.push((squares - model_ss).max(0.0));
+        out.push(cells.within + if self.full { 0.0 } else { outside });
         out
+    }
+
+    /// The sequential blocks' sums of squares of the centred cell means `v`, and what is
+    /// left of v outside the model's sequential blocks and the intercept, ||r||², from an
+    /// explicit residual vector (see `sums_of_squares`). Each block's sum of squares is
+    /// that of its coefficients on the first pass, taken of what the blocks before it
+    /// leave (modified Gram-Schmidt order).
+    fn outside_model(&self, v: &DVector<f64>) -> (Vec<f64>, f64) {
+        let mut sequential = vec![0.0; self.sequential.len()];
+        let mut r = v.clone();
+        let mut before = r.norm_squared();
+        for pass in 0..2 {
+            let c = self.intercept.tr_mul(&r);
+            r.gemv(-1.0, &self.intercept, &c, 1.0);
+            for (t, b) in self.sequential.iter().enumerate() {
+                if let Block::Basis(q) = b {
+                    let c = q.tr_mul(&r);
+                    if pass == 0 {
+                        sequential[t] = c.norm_squared();
+                    }
+                    r.gemv(-1.0, q, &c, 1.0);
+                }
+            }
+            let after = r.norm_squared();
+            if after >= 0.5 * before {
+                break;
+            }
+            before = after;
+        }
+        (sequential, r.norm_squared())
     }
 
     /// Expected mean squares by synthesis (see the module notes), every coefficient
