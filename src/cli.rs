@@ -7,7 +7,7 @@ use clap::{Parser, Subcommand, ValueEnum};
 
 use crate::check::check_with_goal;
 use crate::compare::{Edit, Side, apply, compare};
-use crate::error::Error;
+use crate::error::{Error, ExitStatus};
 use crate::goal::Goal;
 use crate::layout::{Convention, Layout};
 use crate::planning::{PlanningValues, check_probability};
@@ -201,20 +201,46 @@ pub enum ConventionArg {
     Both,
 }
 
+/// Runs the command line and exits 0 (success), 1 (bad input), 2 (usage: the argument
+/// parser's errors) or 3 (the output could not be written); see `ExitStatus`.
 pub fn main() -> ExitCode {
-    let cli = Cli::parse();
-    match run(cli) {
-        Ok(out) => {
-            print!("{out}");
-            ExitCode::SUCCESS
+    let cli = match Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) => {
+            // --help and --version are not errors; they print to stdout.
+            let status = if e.use_stderr() {
+                ExitStatus::Usage
+            } else {
+                ExitStatus::Success
+            };
+            let _ = e.print();
+            return ExitCode::from(status.code());
         }
+    };
+    let status = match run(cli).and_then(|out| write_stdout(&out)) {
+        Ok(()) => ExitStatus::Success,
         Err(e) => {
             eprintln!("emsplan: {e}");
-            match e {
-                Error::Usage(_) => ExitCode::from(2),
-                _ => ExitCode::from(1),
-            }
+            e.exit_status()
         }
+    };
+    ExitCode::from(status.code())
+}
+
+/// Writes the results to stdout. A reader that stops early (a closed pipe, as with
+/// `| head`) is not a failure; any other write error is.
+fn write_stdout(out: &str) -> Result<(), Error> {
+    use std::io::Write;
+    let mut stdout = std::io::stdout().lock();
+    match stdout
+        .write_all(out.as_bytes())
+        .and_then(|()| stdout.flush())
+    {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Error::Write {
+            path: "standard output".into(),
+            source: e,
+        }),
+        _ => Ok(()),
     }
 }
 
@@ -293,7 +319,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 .map_err(|e| e.in_file(&layout_path))?;
             if let (Some(path), Some(set)) = (&data, &set) {
                 std::fs::write(path, render::simulate::data_csv(set)).map_err(|source| {
-                    Error::Io {
+                    Error::Write {
                         path: path.display().to_string(),
                         source,
                     }
@@ -478,7 +504,7 @@ fn write_report(
     markdown: bool,
 ) -> Result<String, Error> {
     let write = |path: &std::path::Path, text: &str| {
-        std::fs::write(path, text).map_err(|source| Error::Io {
+        std::fs::write(path, text).map_err(|source| Error::Write {
             path: path.display().to_string(),
             source,
         })

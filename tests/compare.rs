@@ -147,7 +147,7 @@ fn text_output_says_status_in_words() {
     assert!(out.contains("statistician"));
 }
 
-/// Bad changes are usage errors (exit 2) naming the key.
+/// Bad changes are bad input (exit 1), one line naming the key.
 #[test]
 fn bad_changes_are_clear_errors() {
     let chambers = problem("growth-chambers.toml");
@@ -186,7 +186,7 @@ fn bad_changes_are_clear_errors() {
         let mut args = vec!["compare", chambers.as_str()];
         args.extend_from_slice(extra);
         let (code, out, err) = run(&args);
-        assert_eq!(code, 2, "{extra:?}: {err}");
+        assert_eq!(code, 1, "{extra:?}: {err}");
         assert!(out.is_empty(), "{extra:?} printed to stdout");
         assert_eq!(err.trim_end().lines().count(), 1, "{extra:?}: {err}");
         assert!(err.contains(phrase), "{extra:?}: {err}");

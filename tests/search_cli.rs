@@ -633,18 +633,21 @@ fn space_beyond_the_limit() {
 }
 
 #[test]
-fn bad_command_line_values_are_usage_errors() {
+fn bad_command_line_values_are_refused() {
     let path = scratch("usage").join("problem.toml");
     std::fs::write(&path, BASE).expect("write");
     let p = path.to_str().expect("path");
-    for args in [
-        vec!["search", p, "--top", "0"],
-        vec!["search", p, "--power", "1.5"],
-        vec!["search", p, "--alpha", "0"],
-        vec!["search", p, "--method", "guess"],
+    // Values the argument parser accepts but the search refuses are bad input (exit 1);
+    // what the parser itself refuses is a usage error (exit 2).
+    for (args, code) in [
+        (vec!["search", p, "--top", "0"], 1),
+        (vec!["search", p, "--power", "1.5"], 1),
+        (vec!["search", p, "--alpha", "0"], 1),
+        (vec!["search", p, "--method", "guess"], 2),
+        (vec!["search", p, "--top", "ten"], 2),
     ] {
         let out = run(&args);
-        assert_eq!(out.status.code(), Some(2), "{args:?}");
+        assert_eq!(out.status.code(), Some(code), "{args:?}");
     }
 }
 
