@@ -364,7 +364,7 @@ pub(crate) fn planning_notes(model: &Model, plan: &PlanningValues) -> Vec<String
     let s = &model.structure;
     if !plan.has_priors() {
         return vec![
-            "no [prior] table: power, minimum detectable effects and Satterthwaite df need the standard deviations of the random terms".into(),
+            "no [sd] table: power, minimum detectable effects and Satterthwaite df need planning standard deviations of the random terms and the residual".into(),
         ];
     }
     let mut notes = Vec::new();
@@ -377,7 +377,7 @@ pub(crate) fn planning_notes(model: &Model, plan: &PlanningValues) -> Vec<String
         .collect();
     if !missing.is_empty() {
         notes.push(format!(
-            "taken as zero, having no [prior]: {} (their variance adds nothing to any expected mean square, and their own tests get no power)",
+            "taken as zero, having no [sd] value: {} (their variance adds nothing to any expected mean square, and their own tests get no power)",
             missing.join(", ")
         ));
     }
@@ -552,7 +552,7 @@ pub(crate) fn shortfall(goal: &Goal, o: &Outcome, reason: Option<String>) -> Str
         match o.power {
             Some(x) if x < p => parts.push(format!("its power {x:.2} is below the target {p}")),
             None => parts.push(format!(
-                "its power is unknown (it needs [prior] and [effect]) and {p} is the target"
+                "its power is unknown (it needs [sd] and [effect]) and {p} is the target"
             )),
             _ => {}
         }

@@ -41,7 +41,7 @@ pub enum Command {
     /// Simulate a layout at its planning values: dummy data, and a Monte Carlo check of
     /// the expected mean squares, error rates and power of the planned tests.
     Simulate {
-        /// The layout file (TOML), with a [prior] table.
+        /// The layout file (TOML), with an [sd] table (the planning standard deviations).
         layout: PathBuf,
         /// Seed of the random draws: the same seed gives the same output everywhere.
         #[arg(long, default_value_t = 1)]
@@ -109,7 +109,8 @@ pub enum Command {
         /// Another layout file to compare with (instead of, or before, the changes).
         other: Option<PathBuf>,
         /// Change one thing of the base, e.g. bench.levels=3, replicates=4,
-        /// bench.within=light,cultivar, bench.kind=fixed, alpha=0.01, prior.bench=2.0.
+        /// bench.within=light,cultivar, bench.kind=fixed, alpha=0.01, sd.bench=2.0
+        /// (prior.bench, the old name, still works).
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
         /// Leave out a layer; the factors nested in it move up to its nests.
@@ -165,10 +166,18 @@ impl From<ConventionOne> for Convention {
 /// Reads a layout file with its planning values and goal.
 pub fn load_side(path: &std::path::Path, args: &PlanningArgs) -> Result<Side, Error> {
     let (layout, spec, text) = Layout::from_file(path)?;
+    print_notes(&spec);
     let mut plan = PlanningValues::from_spec(&spec, &text, &layout).map_err(|e| e.in_file(path))?;
     args.apply(&mut plan)?;
     let goal = Goal::from_spec(&spec, &text, &layout).map_err(|e| e.in_file(path))?;
     Ok(Side { layout, plan, goal })
+}
+
+/// Tells on stderr what the reader should know about how a file was read.
+fn print_notes(spec: &crate::spec::Spec) {
+    for note in &spec.notes {
+        eprintln!("emsplan: {note}");
+    }
 }
 
 /// Overrides of the file's test level and target power.
@@ -356,6 +365,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             if top == 0 {
                 return Err(Error::Usage("--top must be at least 1".into()));
             }
+            print_notes(&crate::spec::read(&problem)?.0);
             let p = Problem::from_file(&problem, alpha, power)?;
             if !p.base.is_balanced() {
                 return Err(Error::Usage(format!(
@@ -410,7 +420,11 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             }
             let mut edits: Vec<Edit> = Vec::new();
             for s in &set {
-                edits.push(Edit::parse_set(s)?);
+                let edit = Edit::parse_set(s)?;
+                if let Some(note) = edit.old_name_note() {
+                    eprintln!("emsplan: {note}");
+                }
+                edits.push(edit);
             }
             edits.extend(drop.iter().cloned().map(Edit::Drop));
             edits.extend(remove.iter().cloned().map(Edit::Remove));

@@ -75,7 +75,7 @@ impl ExitStatus {
     }
 }
 
-fn where_(file: &Option<String>, line: &Option<usize>) -> String {
+pub(crate) fn where_(file: &Option<String>, line: &Option<usize>) -> String {
     match (file, line) {
         (Some(f), Some(l)) => format!("{f} line {l}: "),
         (Some(f), None) => format!("{f}: "),

@@ -118,9 +118,9 @@ fn what_if_a_factor_is_random() {
         "--set",
         "farm.kind=random",
         "--set",
-        "prior.farm=0.3",
+        "sd.farm=0.3",
         "--set",
-        "prior.blend x farm=0.15",
+        "sd.blend x farm=0.15",
     ]);
     let blend = v["terms"]
         .as_array()
@@ -169,10 +169,10 @@ fn bad_changes_are_clear_errors() {
         (&["--set", "colour=blue"], "unknown key \"colour\""),
         (&["--set", "replicates"], "write KEY=VALUE"),
         (&["--set", "alpha=2"], "between 0 and 1"),
-        (&["--set", "prior.light=1.0"], "is a fixed term"),
+        (&["--set", "sd.light=1.0"], "is a fixed term"),
         (&["--set", "effect.chamber=1.0"], "is a random term"),
         (
-            &["--set", "prior.residual=-1"],
+            &["--set", "sd.residual=-1"],
             "finite number of zero or more",
         ),
         (&["--drop", "shelf"], "\"shelf\" is not a factor"),

@@ -177,7 +177,7 @@ name = "cultivar"
 kind = "fixed"
 levels = 4
 
-[prior]
+[sd]
 residual = 1.0
 chamber = 0.5
 
@@ -563,12 +563,12 @@ fn target_power_outside_zero_one() {
 
 #[test]
 fn target_power_without_priors() {
-    let t = BASE.replace("[prior]\nresidual = 1.0\nchamber = 0.5\n", "");
+    let t = BASE.replace("[sd]\nresidual = 1.0\nchamber = 0.5\n", "");
     rejected(
         "power-no-prior",
         &t,
         Some("target_power"),
-        "needs a [prior] table",
+        "needs an [sd] table",
         &[],
     );
 }
@@ -588,7 +588,7 @@ fn target_power_without_an_effect_for_a_fixed_must_test_term() {
 #[test]
 fn power_flag_without_priors() {
     let t = BASE
-        .replace("[prior]\nresidual = 1.0\nchamber = 0.5\n", "")
+        .replace("[sd]\nresidual = 1.0\nchamber = 0.5\n", "")
         .replace("target_power = 0.8\n", "");
     rejected(
         "power-flag-no-prior",

@@ -42,7 +42,7 @@ pub fn tested_over(test: &TestReport) -> String {
 fn den_df(test: &TestReport) -> String {
     match test.denominator_df {
         Some(df) => num(df),
-        None if test.verdict == Verdict::Synthetic => "needs priors".into(),
+        None if test.verdict == Verdict::Synthetic => "needs [sd]".into(),
         None => "-".into(),
     }
 }

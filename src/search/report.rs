@@ -141,7 +141,7 @@ pub fn build(
     }
     if !search.problem.plan.has_priors() {
         notes.push(
-            "no [prior] table, so no power: the frontier of cost against power is empty, and ties in cost go to the larger smallest denominator df".into(),
+            "no [sd] table, so no power: the frontier of cost against power is empty, and ties in cost go to the larger smallest denominator df".into(),
         );
     }
     let frontier = tally
@@ -424,7 +424,7 @@ fn why(search: &Search, r: Rejection, e: &Entry, c: &CandidateReport) -> String 
                 p.min_df.map_or("-".into(), crate::render::num)
             ),
             None => format!(
-                "with {layout}, {} has only a quasi-F test, whose Satterthwaite df are unknown without a [prior] table, so min_df cannot be met",
+                "with {layout}, {} has only a quasi-F test, whose Satterthwaite df are unknown without an [sd] table, so min_df cannot be met",
                 t.label
             ),
         },
@@ -466,7 +466,7 @@ fn binding(search: &Search, tally: &Tally, rejections: &[RejectionReport]) -> St
                 p.min_df.map_or("-".into(), crate::render::num)
             ),
             None => format!(
-                "min_df binds: the testable layouts leave {} with a quasi-F test whose df are unknown without a [prior] table",
+                "min_df binds: the testable layouts leave {} with a quasi-F test whose df are unknown without an [sd] table",
                 t.map_or("a must-test term".into(), |t| t.label.clone())
             ),
         };
