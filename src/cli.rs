@@ -17,7 +17,8 @@ use crate::render::{self, Format};
 #[command(
     name = "emsplan",
     version,
-    about = "Plan experiments with crossed and nested, fixed and random factors: expected mean squares, error terms, power and cost."
+    about = "Plan experiments with crossed and nested, fixed and random factors: expected mean squares, error terms, power and cost.",
+    after_help = limits_and_exit_codes()
 )]
 pub struct Cli {
     #[command(subcommand)]
@@ -26,7 +27,9 @@ pub struct Cli {
 
 #[derive(Debug, Subcommand)]
 pub enum Command {
-    /// Check a layout: df, expected mean squares, error term and verdict of every term.
+    /// Check a layout: df, expected mean squares, error term, verdict and power of every
+    /// term, and the layout's cost.
+    #[command(after_help = layout_limits())]
     Check {
         /// The layout file (TOML).
         layout: PathBuf,
@@ -40,6 +43,7 @@ pub enum Command {
     },
     /// Simulate a layout at its planning values: dummy data, and a Monte Carlo check of
     /// the expected mean squares, error rates and power of the planned tests.
+    #[command(after_help = layout_limits())]
     Simulate {
         /// The layout file (TOML), with an [sd] table (the planning standard deviations).
         layout: PathBuf,
@@ -52,7 +56,7 @@ pub enum Command {
         /// Write one dummy data set (CSV, long format) to this file.
         #[arg(long)]
         data: Option<PathBuf>,
-        /// Grand mean of the dummy data set (default 0).
+        /// Grand mean of the dummy data set.
         #[arg(long, default_value_t = 0.0, allow_negative_numbers = true)]
         mean: f64,
         /// Number nested levels across nests (bench1..bench6) instead of within each nest.
@@ -64,8 +68,10 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
-    /// Analyze balanced data: the ANOVA with each term over its planned error term,
-    /// variance components by the method of moments, and the means of the fixed terms.
+    /// Analyze the data, balanced or not (missing cells, lost observations, NA): the ANOVA
+    /// with each term over its planned error term, variance components by the method of
+    /// moments, and the means of the fixed terms.
+    #[command(after_help = layout_limits())]
     Analyze {
         /// The layout file (TOML) the experiment was run to.
         layout: PathBuf,
@@ -77,15 +83,18 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
-    /// Search for the cheapest layout whose must-test terms are testable, with enough
-    /// denominator df and power, within the budget (a layout file with a [search] table).
+    /// Search for the cheapest balanced layout whose must-test terms are testable, with
+    /// enough denominator df and power, within the budget (a layout file with a [search]
+    /// table).
+    #[command(after_help = layout_limits())]
     Search {
         /// The problem file (TOML).
         problem: PathBuf,
         /// Candidates in the ranked table.
         #[arg(long, default_value_t = 10)]
         top: usize,
-        /// Stop before enumerating a space larger than this.
+        /// Stop before enumerating a space of more candidates than this (with `optimize`:
+        /// before any enumeration it falls back on).
         #[arg(long, default_value_t = crate::search::DEFAULT_MAX_CANDIDATES)]
         max_candidates: u64,
         /// `enumerate` lists every candidate (ranking, frontier, rejections);
@@ -103,6 +112,7 @@ pub enum Command {
         format: Format,
     },
     /// Compare two layouts side by side: a second file, or the base with changes.
+    #[command(after_help = layout_limits())]
     Compare {
         /// The base layout file.
         base: PathBuf,
@@ -127,6 +137,7 @@ pub enum Command {
         format: Format,
     },
     /// Write a report that justifies the design: self-contained HTML, or Markdown.
+    #[command(after_help = layout_limits())]
     Report {
         /// The layout or problem file (TOML).
         layout: PathBuf,
@@ -208,6 +219,26 @@ pub enum ConventionArg {
     Restricted,
     Unrestricted,
     Both,
+}
+
+/// The engine's limits, at the end of the help of every command that reads a layout.
+fn layout_limits() -> String {
+    format!(
+        "Limits: at most {} factors; level counts of at least 1 (2 for a fixed factor) whose product with the replicates fits in 64 bits; a layout with removed cells, or unbalanced data, at most {} observations and {} cells, both counted in the full layout; simulate and report --runs at most {}; search stops before more than --max-candidates candidates (default {}). See docs/layout-file.md.",
+        crate::layout::MAX_FACTORS,
+        crate::unbalanced::removal::MAX_OBSERVATIONS,
+        crate::unbalanced::removal::MAX_CELLS,
+        crate::simulate::MAX_RUNS,
+        crate::search::DEFAULT_MAX_CANDIDATES,
+    )
+}
+
+/// The end of `emsplan --help`: the limits and the exit codes.
+fn limits_and_exit_codes() -> String {
+    format!(
+        "{}\n\nExit status: 0 success; 1 bad input (a file or value to fix); 2 usage (the command line could not be parsed); 3 the output could not be written.",
+        layout_limits()
+    )
 }
 
 /// Runs the command line and exits 0 (success), 1 (bad input), 2 (usage: the argument
