@@ -34,7 +34,7 @@ within = ["site"]
 name = "variety"
 kind = "fixed"
 levels = 10
-[prior]
+[sd]
 residual = 2.0
 block = 1.0
 "block x variety" = 0.5

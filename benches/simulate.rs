@@ -39,7 +39,7 @@ within = ["greenhouse"]
 name = "variety"
 kind = "fixed"
 levels = 5
-[prior]
+[sd]
 residual = 1.0
 greenhouse = 0.8
 bench = 0.5

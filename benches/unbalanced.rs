@@ -55,7 +55,7 @@ name = "pen"
 kind = "random"
 levels = 10
 within = ["breed"]
-[prior]
+[sd]
 residual = 1.0
 farm = 0.5
 pen = 0.4

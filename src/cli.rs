@@ -7,7 +7,7 @@ use clap::{Parser, Subcommand, ValueEnum};
 
 use crate::check::check_with_goal;
 use crate::compare::{Edit, Side, apply, compare};
-use crate::error::Error;
+use crate::error::{Error, ExitStatus};
 use crate::goal::Goal;
 use crate::layout::{Convention, Layout};
 use crate::planning::{PlanningValues, check_probability};
@@ -17,7 +17,8 @@ use crate::render::{self, Format};
 #[command(
     name = "emsplan",
     version,
-    about = "Plan experiments with crossed and nested, fixed and random factors: expected mean squares, error terms, power and cost."
+    about = "Plan experiments with crossed and nested, fixed and random factors: expected mean squares, error terms, power and cost.",
+    after_help = limits_and_exit_codes()
 )]
 pub struct Cli {
     #[command(subcommand)]
@@ -26,7 +27,9 @@ pub struct Cli {
 
 #[derive(Debug, Subcommand)]
 pub enum Command {
-    /// Check a layout: df, expected mean squares, error term and verdict of every term.
+    /// Check a layout: df, expected mean squares, error term, verdict and power of every
+    /// term, and the layout's cost.
+    #[command(after_help = layout_limits())]
     Check {
         /// The layout file (TOML).
         layout: PathBuf,
@@ -40,8 +43,9 @@ pub enum Command {
     },
     /// Simulate a layout at its planning values: dummy data, and a Monte Carlo check of
     /// the expected mean squares, error rates and power of the planned tests.
+    #[command(after_help = layout_limits())]
     Simulate {
-        /// The layout file (TOML), with a [prior] table.
+        /// The layout file (TOML), with an [sd] table (the planning standard deviations).
         layout: PathBuf,
         /// Seed of the random draws: the same seed gives the same output everywhere.
         #[arg(long, default_value_t = 1)]
@@ -52,7 +56,7 @@ pub enum Command {
         /// Write one dummy data set (CSV, long format) to this file.
         #[arg(long)]
         data: Option<PathBuf>,
-        /// Grand mean of the dummy data set (default 0).
+        /// Grand mean of the dummy data set.
         #[arg(long, default_value_t = 0.0, allow_negative_numbers = true)]
         mean: f64,
         /// Number nested levels across nests (bench1..bench6) instead of within each nest.
@@ -64,8 +68,10 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
-    /// Analyze balanced data: the ANOVA with each term over its planned error term,
-    /// variance components by the method of moments, and the means of the fixed terms.
+    /// Analyze the data, balanced or not (missing cells, lost observations, NA): the ANOVA
+    /// with each term over its planned error term, variance components by the method of
+    /// moments, and the means of the fixed terms.
+    #[command(after_help = layout_limits())]
     Analyze {
         /// The layout file (TOML) the experiment was run to.
         layout: PathBuf,
@@ -77,15 +83,18 @@ pub enum Command {
         #[arg(long, value_enum, default_value = "text")]
         format: Format,
     },
-    /// Search for the cheapest layout whose must-test terms are testable, with enough
-    /// denominator df and power, within the budget (a layout file with a [search] table).
+    /// Search for the cheapest balanced layout whose must-test terms are testable, with
+    /// enough denominator df and power, within the budget (a layout file with a [search]
+    /// table).
+    #[command(after_help = layout_limits())]
     Search {
         /// The problem file (TOML).
         problem: PathBuf,
         /// Candidates in the ranked table.
         #[arg(long, default_value_t = 10)]
         top: usize,
-        /// Stop before enumerating a space larger than this.
+        /// Stop before enumerating a space of more candidates than this (with `optimize`:
+        /// before any enumeration it falls back on).
         #[arg(long, default_value_t = crate::search::DEFAULT_MAX_CANDIDATES)]
         max_candidates: u64,
         /// `enumerate` lists every candidate (ranking, frontier, rejections);
@@ -103,13 +112,15 @@ pub enum Command {
         format: Format,
     },
     /// Compare two layouts side by side: a second file, or the base with changes.
+    #[command(after_help = layout_limits())]
     Compare {
         /// The base layout file.
         base: PathBuf,
         /// Another layout file to compare with (instead of, or before, the changes).
         other: Option<PathBuf>,
         /// Change one thing of the base, e.g. bench.levels=3, replicates=4,
-        /// bench.within=light,cultivar, bench.kind=fixed, alpha=0.01, prior.bench=2.0.
+        /// bench.within=light,cultivar, bench.kind=fixed, alpha=0.01, sd.bench=2.0
+        /// (prior.bench, the old name, still works).
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
         /// Leave out a layer; the factors nested in it move up to its nests.
@@ -126,6 +137,7 @@ pub enum Command {
         format: Format,
     },
     /// Write a report that justifies the design: self-contained HTML, or Markdown.
+    #[command(after_help = layout_limits())]
     Report {
         /// The layout or problem file (TOML).
         layout: PathBuf,
@@ -165,10 +177,18 @@ impl From<ConventionOne> for Convention {
 /// Reads a layout file with its planning values and goal.
 pub fn load_side(path: &std::path::Path, args: &PlanningArgs) -> Result<Side, Error> {
     let (layout, spec, text) = Layout::from_file(path)?;
+    print_notes(&spec);
     let mut plan = PlanningValues::from_spec(&spec, &text, &layout).map_err(|e| e.in_file(path))?;
     args.apply(&mut plan)?;
     let goal = Goal::from_spec(&spec, &text, &layout).map_err(|e| e.in_file(path))?;
     Ok(Side { layout, plan, goal })
+}
+
+/// Tells on stderr what the reader should know about how a file was read.
+fn print_notes(spec: &crate::spec::Spec) {
+    for note in &spec.notes {
+        eprintln!("emsplan: {note}");
+    }
 }
 
 /// Overrides of the file's test level and target power.
@@ -201,20 +221,66 @@ pub enum ConventionArg {
     Both,
 }
 
+/// The engine's limits, at the end of the help of every command that reads a layout.
+fn layout_limits() -> String {
+    format!(
+        "Limits: at most {} factors; level counts of at least 1 (2 for a fixed factor) whose product with the replicates fits in 64 bits; a layout with removed cells, or unbalanced data, at most {} observations and {} cells, both counted in the full layout; simulate and report --runs at most {}; search stops before more than --max-candidates candidates (default {}). See docs/layout-file.md.",
+        crate::layout::MAX_FACTORS,
+        crate::unbalanced::removal::MAX_OBSERVATIONS,
+        crate::unbalanced::removal::MAX_CELLS,
+        crate::simulate::MAX_RUNS,
+        crate::search::DEFAULT_MAX_CANDIDATES,
+    )
+}
+
+/// The end of `emsplan --help`: the limits and the exit codes.
+fn limits_and_exit_codes() -> String {
+    format!(
+        "{}\n\nExit status: 0 success; 1 bad input (a file or value to fix); 2 usage (the command line could not be parsed); 3 the output could not be written.",
+        layout_limits()
+    )
+}
+
+/// Runs the command line and exits 0 (success), 1 (bad input), 2 (usage: the argument
+/// parser's errors) or 3 (the output could not be written); see `ExitStatus`.
 pub fn main() -> ExitCode {
-    let cli = Cli::parse();
-    match run(cli) {
-        Ok(out) => {
-            print!("{out}");
-            ExitCode::SUCCESS
+    let cli = match Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) => {
+            // --help and --version are not errors; they print to stdout.
+            let status = if e.use_stderr() {
+                ExitStatus::Usage
+            } else {
+                ExitStatus::Success
+            };
+            let _ = e.print();
+            return ExitCode::from(status.code());
         }
+    };
+    let status = match run(cli).and_then(|out| write_stdout(&out)) {
+        Ok(()) => ExitStatus::Success,
         Err(e) => {
             eprintln!("emsplan: {e}");
-            match e {
-                Error::Usage(_) => ExitCode::from(2),
-                _ => ExitCode::from(1),
-            }
+            e.exit_status()
         }
+    };
+    ExitCode::from(status.code())
+}
+
+/// Writes the results to stdout. A reader that stops early (a closed pipe, as with
+/// `| head`) is not a failure; any other write error is.
+fn write_stdout(out: &str) -> Result<(), Error> {
+    use std::io::Write;
+    let mut stdout = std::io::stdout().lock();
+    match stdout
+        .write_all(out.as_bytes())
+        .and_then(|()| stdout.flush())
+    {
+        Err(e) if e.kind() != std::io::ErrorKind::BrokenPipe => Err(Error::Write {
+            path: "standard output".into(),
+            source: e,
+        }),
+        _ => Ok(()),
     }
 }
 
@@ -290,7 +356,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 .map_err(|e| e.in_file(&layout_path))?;
             if let (Some(path), Some(set)) = (&data, &set) {
                 std::fs::write(path, render::simulate::data_csv(set)).map_err(|source| {
-                    Error::Io {
+                    Error::Write {
                         path: path.display().to_string(),
                         source,
                     }
@@ -327,6 +393,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             if top == 0 {
                 return Err(Error::Usage("--top must be at least 1".into()));
             }
+            print_notes(&crate::spec::read(&problem)?.0);
             let p = Problem::from_file(&problem, alpha, power)?;
             let search = Search::new(p).map_err(|e| e.in_file(&problem))?;
             let space = search.space();
@@ -375,7 +442,11 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             }
             let mut edits: Vec<Edit> = Vec::new();
             for s in &set {
-                edits.push(Edit::parse_set(s)?);
+                let edit = Edit::parse_set(s)?;
+                if let Some(note) = edit.old_name_note() {
+                    eprintln!("emsplan: {note}");
+                }
+                edits.push(edit);
             }
             edits.extend(drop.iter().cloned().map(Edit::Drop));
             edits.extend(remove.iter().cloned().map(Edit::Remove));
@@ -468,7 +539,7 @@ fn write_report(
     markdown: bool,
 ) -> Result<String, Error> {
     let write = |path: &std::path::Path, text: &str| {
-        std::fs::write(path, text).map_err(|source| Error::Io {
+        std::fs::write(path, text).map_err(|source| Error::Write {
             path: path.display().to_string(),
             source,
         })

@@ -15,6 +15,11 @@ use crate::term::{Mask, REPLICATE, parse_term_label};
 use crate::unbalanced::removal::{Removal, parse_cell};
 use crate::variant::{drop_factor, set_within};
 
+/// The `--set` key of a planning standard deviation: `sd.TERM`.
+const SD_KEY: &str = "sd";
+/// Its old name, still accepted: `prior.TERM`.
+const OLD_SD_KEY: &str = "prior";
+
 /// One change to the base layout, as given on the command line.
 #[derive(Debug, Clone, PartialEq, Eq)]
 pub enum Edit {
@@ -33,6 +38,20 @@ impl Edit {
         Ok(Edit::Set {
             key: key.trim().to_string(),
             value: value.trim().to_string(),
+        })
+    }
+
+    /// A note when the key is written under an old name (`prior.TERM` for `sd.TERM`);
+    /// the edit works the same.
+    pub fn old_name_note(&self) -> Option<String> {
+        let Edit::Set { key, value } = self else {
+            return None;
+        };
+        let (head, term) = key.split_once('.')?;
+        (head == OLD_SD_KEY).then(|| {
+            format!(
+                "--set {key}={value}: {OLD_SD_KEY}.TERM is now called {SD_KEY}.TERM ({SD_KEY}.{term}); the old name still works"
+            )
         })
     }
 
@@ -208,11 +227,11 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<EditNote>), Error> {
                     }
                     _ => {
                         return Err(bad(format!(
-                            "unknown key \"{key}\" (known: replicates, alpha, convention, sums_of_squares, omit, FACTOR.levels, FACTOR.kind, FACTOR.within, FACTOR.population, prior.TERM, effect.TERM, cost.TERM, cost.overhead)"
+                            "unknown key \"{key}\" (known: replicates, alpha, convention, sums_of_squares, omit, FACTOR.levels, FACTOR.kind, FACTOR.within, FACTOR.population, sd.TERM, effect.TERM, cost.TERM, cost.overhead)"
                         )));
                     }
                 },
-                Some(("prior", term)) => {
+                Some((SD_KEY | OLD_SD_KEY, term)) => {
                     let live = term_key(term)?;
                     let t = crate::layout::term_of(&s, live);
                     if live != REPLICATE && t.kind(&s) == Kind::Fixed {
@@ -222,7 +241,7 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<EditNote>), Error> {
                     }
                     if side.plan.priors.is_empty() && live != REPLICATE {
                         return Err(bad(
-                            "the layout has no [prior] table: set prior.residual first".into(),
+                            "the layout has no [sd] table: set sd.residual first".into()
                         ));
                     }
                     side.plan.priors.insert(live, size(value)?);
@@ -232,7 +251,7 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<EditNote>), Error> {
                     let t = crate::layout::term_of(&s, live);
                     if live == REPLICATE || t.kind(&s) == Kind::Random {
                         return Err(bad(format!(
-                            "\"{term}\" is a random term: set prior.{term} instead"
+                            "\"{term}\" is a random term: set sd.{term} instead"
                         )));
                     }
                     side.plan

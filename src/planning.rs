@@ -1,9 +1,9 @@
 //! Planning values and what follows from them: expected mean squares in the response's
 //! units, Satterthwaite df, power, minimum detectable effects, and cost.
 //!
-//! Planning values are the user's guesses: standard deviations of random terms
-//! (`[prior]`), smallest effects worth detecting for fixed terms (`[effect]`), unit costs
-//! (`[cost]`). Every result here is only as good as they are.
+//! Planning values are the user's guesses: standard deviations of random terms (`[sd]`,
+//! once called `[prior]`), smallest effects worth detecting for fixed terms (`[effect]`),
+//! unit costs (`[cost]`). Every result here is only as good as they are.
 
 use std::collections::BTreeMap;
 
@@ -53,7 +53,7 @@ pub struct PlanningValues {
     /// The power the minimum detectable effects are solved for.
     pub power: f64,
     /// Standard deviations of random terms, by live set (`REPLICATE` for the residual).
-    /// Empty when the file has no `[prior]`.
+    /// Empty when the file has no `[sd]` table.
     pub priors: BTreeMap<Mask, f64>,
     pub effects: BTreeMap<Mask, Effect>,
     pub cost: Option<CostModel>,
@@ -75,17 +75,17 @@ impl PlanningValues {
         };
         let model = Model::new(s);
         let mut priors = BTreeMap::new();
-        if let Some(spanned) = &spec.prior {
+        if let Some(spanned) = &spec.sd {
             let table = spanned.get_ref();
             for (key, value) in table {
                 let line = at(value.span());
                 let term =
-                    resolve(s, key).map_err(|m| Error::invalid(line, format!("[prior] {m}")))?;
+                    resolve(s, key).map_err(|m| Error::invalid(line, format!("[sd] {m}")))?;
                 if !term.is_residual() && term.kind(s) == Kind::Fixed {
                     return Err(Error::invalid(
                         line,
                         format!(
-                            "[prior] \"{key}\" is a fixed term: give its smallest effect worth detecting under [effect] instead"
+                            "[sd] \"{key}\" is a fixed term: give its smallest effect worth detecting under [effect] instead"
                         ),
                     ));
                 }
@@ -93,18 +93,18 @@ impl PlanningValues {
                     return Err(Error::invalid(
                         line,
                         format!(
-                            "[prior] \"{key}\" is assumed absent (in `omit`), so it has no variance"
+                            "[sd] \"{key}\" is assumed absent (in `omit`), so it has no variance"
                         ),
                     ));
                 }
                 let sd = non_negative(*value.get_ref())
-                    .map_err(|m| Error::invalid(line, format!("[prior] \"{key}\": {m}")))?;
+                    .map_err(|m| Error::invalid(line, format!("[sd] \"{key}\": {m}")))?;
                 priors.insert(term.live, sd);
             }
             if !priors.contains_key(&REPLICATE) {
                 return Err(Error::invalid(
                     at(spanned.span()),
-                    "[prior] needs `residual`, the standard deviation between observations within a cell",
+                    "[sd] needs `residual`, the standard deviation between observations within a cell",
                 ));
             }
         }
@@ -118,7 +118,7 @@ impl PlanningValues {
                     return Err(Error::invalid(
                         line,
                         format!(
-                            "[effect] \"{key}\" is a random term: give its standard deviation under [prior] instead"
+                            "[effect] \"{key}\" is a random term: give its standard deviation under [sd] instead"
                         ),
                     ));
                 }

@@ -4,7 +4,7 @@
 //! # The model simulated
 //!
 //! y = μ + Σ_T (effect of T at the observation's cell of T) + ε, with ε ~ N(0, σ²) and σ the
-//! `residual` prior.
+//! `residual` value of `[sd]`.
 //!
 //! - A fixed term gets fixed effects in a linear pattern: the product over its live
 //!   factors of the centred level scores i - (n + 1)/2 (i = 1..n), the same in every cell of
@@ -14,13 +14,13 @@
 //!   each live subscript, so κ² = Σ effect² / df is what `planning` puts in the expected
 //!   mean squares. A fixed term without an `[effect]` has no effect.
 //! - A random term's effects are drawn afresh for every data set, independent N(0, σ²_T)
-//!   over its cells with σ_T its `[prior]`. Under the restricted convention (Cornfield and
+//!   over its cells with σ_T its `[sd]`. Under the restricted convention (Cornfield and
 //!   Tukey 1956) they are then centred over every fixed live subscript, so that mixed
 //!   interaction effects sum to zero over each fixed subscript; for a two-factor mixed
 //!   interaction this gives Var = ((a - 1)/a) σ², which is the parameterisation of the
 //!   restricted model whose expected mean squares `ems` computes (`tests/monte_carlo.rs`
 //!   holds the engine to it). Under the unrestricted convention they are left independent.
-//!   A random term without a prior has no effect.
+//!   A random term without an `[sd]` value has no effect.
 //! - A random factor from a finite population of N (Cornfield and Tukey 1956): the effects
 //!   of every random term live in it are drawn over the whole population and centred over
 //!   it (so σ² = Σ effect² / (N - 1) over the population), and in every data set the
@@ -53,7 +53,7 @@
 //! layout refuses the rest).
 //!
 //! Expected mean squares, Hartley (1967): E(y'Ay) = σ² tr(A) + Σ_U σ²_U tr(A Z_U Z_U') +
-//! μ'Aμ. The random part is the synthesis coefficients times the priors. The fixed part
+//! μ'Aμ. The random part is the synthesis coefficients times the variances. The fixed part
 //! μ'Aμ depends on the pattern of the fixed effects in an unbalanced layout; the synthesis
 //! gives its average over patterns, but the simulator draws one pattern, so it is computed
 //! exactly: the sum of squares of the noise-free fixed mean μ through the same fit, divided
@@ -229,7 +229,7 @@ impl Simulator {
         if !plan.has_priors() {
             return Err(Error::invalid(
                 None,
-                "simulate draws data from the planning values: add a [prior] table with at least `residual`, the standard deviation within cells (see docs/planning.md)",
+                "simulate draws data from the planning values: add an [sd] table with at least `residual`, the standard deviation within cells (see docs/planning.md)",
             ));
         }
         let mut full = layout.clone();

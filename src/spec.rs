@@ -18,10 +18,38 @@ pub struct Spec {
     pub layout: Option<LayoutSpec>,
     #[serde(default)]
     pub factor: Vec<Spanned<FactorSpec>>,
-    pub prior: Option<Spanned<BTreeMap<String, Spanned<f64>>>>,
+    /// `[sd]`: the standard deviations guessed for the random terms and the residual,
+    /// for planning. A file may still call the table by its old name, `[prior]`.
+    pub sd: Option<Spanned<BTreeMap<String, Spanned<f64>>>>,
+    /// The old name of `[sd]`, as read; `parse` moves it into `sd` and leaves a note.
+    #[serde(rename = "prior")]
+    old_sd: Option<Spanned<BTreeMap<String, Spanned<f64>>>>,
     pub effect: Option<BTreeMap<String, Spanned<EffectSpec>>>,
     pub cost: Option<CostSpec>,
     pub search: Option<SearchSpec>,
+    /// What the reader should know about how the file was read (an old table name);
+    /// not an error, and the run is the same without it.
+    #[serde(skip)]
+    pub notes: Vec<Note>,
+}
+
+/// A remark about the file as written, with its place: `layout.toml line 12: ...`.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Note {
+    pub file: Option<String>,
+    pub line: Option<usize>,
+    pub message: String,
+}
+
+impl std::fmt::Display for Note {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(
+            f,
+            "{}{}",
+            crate::error::where_(&self.file, &self.line),
+            self.message
+        )
+    }
 }
 
 #[derive(Debug, Clone, Deserialize)]
@@ -136,20 +164,48 @@ pub fn read(path: &Path) -> Result<(Spec, String), Error> {
             path: path.display().to_string(),
         });
     }
-    let spec = parse(&text).map_err(|e| e.in_file(path))?;
+    let mut spec = parse(&text).map_err(|e| e.in_file(path))?;
+    for note in &mut spec.notes {
+        note.file = Some(path.display().to_string());
+    }
     Ok((spec, text))
 }
 
-/// Parses layout text; errors carry the line but no file name yet.
+/// Parses layout text; errors and notes carry the line but no file name yet.
 pub fn parse(text: &str) -> Result<Spec, Error> {
-    toml::from_str::<Spec>(text).map_err(|e| {
+    let mut spec = toml::from_str::<Spec>(text).map_err(|e| {
         let line = e.span().map(|s| line_of(text, s.start));
         Error::Syntax {
             file: None,
             line,
             message: e.message().trim().to_string(),
         }
-    })
+    })?;
+    if let Some(old) = spec.old_sd.take() {
+        let old_line = line_of(text, old.span().start);
+        if let Some(sd) = &spec.sd {
+            let sd_line = line_of(text, sd.span().start);
+            let (line, here, there, other_line) = if sd_line > old_line {
+                (sd_line, "[sd]", "[prior]", old_line)
+            } else {
+                (old_line, "[prior]", "[sd]", sd_line)
+            };
+            return Err(Error::Syntax {
+                file: None,
+                line: Some(line),
+                message: format!(
+                    "{here} and the {there} table of line {other_line} are the same table ([prior] is the old name of [sd]): keep one, named [sd]"
+                ),
+            });
+        }
+        spec.notes.push(Note {
+            file: None,
+            line: Some(old_line),
+            message: "[prior] is now called [sd]; the old name still works".into(),
+        });
+        spec.sd = Some(old);
+    }
+    Ok(spec)
 }
 
 /// 1-based line number of a byte offset.

@@ -262,6 +262,8 @@ const CASES: &[Case] = &[
         why: "TOML v1.0.0: a key may not be defined twice in a table" },
     Case { file: "alpha-string.toml", line: Line::At(2), phrase: "five percent",
         why: "alpha is a probability, a number" },
+    Case { file: "sd-and-prior.toml", line: Line::At(13), phrase: "[prior] and the [sd] table of line 10 are the same table",
+        why: "[prior] is the old name of [sd]: two tables would give one term two values" },
     Case { file: "too-many-factors.toml", line: Line::Any, phrase: "at most 12",
         why: "the engine's documented limit (layout::MAX_FACTORS)" },
     // Not text.

@@ -114,9 +114,9 @@ fn what_if_a_factor_is_random() {
         "--set",
         "farm.kind=random",
         "--set",
-        "prior.farm=0.3",
+        "sd.farm=0.3",
         "--set",
-        "prior.blend x farm=0.15",
+        "sd.blend x farm=0.15",
     ]);
     let blend = v["terms"]
         .as_array()
@@ -143,7 +143,7 @@ fn text_output_says_status_in_words() {
     assert!(out.contains("statistician"));
 }
 
-/// Bad changes are usage errors (exit 2) naming the key.
+/// Bad changes are bad input (exit 1), one line naming the key.
 #[test]
 fn bad_changes_are_clear_errors() {
     let chambers = problem("growth-chambers.toml");
@@ -165,10 +165,10 @@ fn bad_changes_are_clear_errors() {
         (&["--set", "colour=blue"], "unknown key \"colour\""),
         (&["--set", "replicates"], "write KEY=VALUE"),
         (&["--set", "alpha=2"], "between 0 and 1"),
-        (&["--set", "prior.light=1.0"], "is a fixed term"),
+        (&["--set", "sd.light=1.0"], "is a fixed term"),
         (&["--set", "effect.chamber=1.0"], "is a random term"),
         (
-            &["--set", "prior.residual=-1"],
+            &["--set", "sd.residual=-1"],
             "finite number of zero or more",
         ),
         (&["--drop", "shelf"], "\"shelf\" is not a factor"),
@@ -182,7 +182,7 @@ fn bad_changes_are_clear_errors() {
         let mut args = vec!["compare", chambers.as_str()];
         args.extend_from_slice(extra);
         let (code, out, err) = run(&args);
-        assert_eq!(code, 2, "{extra:?}: {err}");
+        assert_eq!(code, 1, "{extra:?}: {err}");
         assert!(out.is_empty(), "{extra:?} printed to stdout");
         assert_eq!(err.trim_end().lines().count(), 1, "{extra:?}: {err}");
         assert!(err.contains(phrase), "{extra:?}: {err}");

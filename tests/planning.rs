@@ -30,7 +30,7 @@ replicates = {per_group}
 name = "ration"
 kind = "fixed"
 levels = {groups}
-[prior]
+[sd]
 residual = 1.0
 [effect]
 ration = {f}
@@ -79,7 +79,7 @@ replicates = 4
 name = "batch"
 kind = "random"
 levels = 6
-[prior]
+[sd]
 residual = 2.0
 batch = {sd}
 "#
@@ -162,7 +162,7 @@ replicates = 5
 name = "dose"
 kind = "fixed"
 levels = 4
-[prior]
+[sd]
 residual = 1.0
 [effect]
 dose = {effect}
@@ -192,14 +192,14 @@ kind = "random"
 levels = 2
 "#;
     let cases = [
-        ("[prior]\nresidual = -1.0\n", "negative"),
-        ("[prior]\nresidual = nan\n", "not a finite number"),
+        ("[sd]\nresidual = -1.0\n", "negative"),
+        ("[sd]\nresidual = nan\n", "not a finite number"),
         (
-            "[prior]\nresidual = 1.0\nbench = 1.0\n",
+            "[sd]\nresidual = 1.0\nbench = 1.0\n",
             "\"bench\", which is not a factor",
         ),
-        ("[prior]\nresidual = 1.0\ndose = 1.0\n", "is a fixed term"),
-        ("[prior]\ntray = 1.0\n", "needs `residual`"),
+        ("[sd]\nresidual = 1.0\ndose = 1.0\n", "is a fixed term"),
+        ("[sd]\ntray = 1.0\n", "needs `residual`"),
         ("[effect]\ntray = 1.0\n", "is a random term"),
         ("[effect]\n\"dose x tray\" = 1.0\n", "is a random term"),
         ("[effect]\ndose = inf\n", "not a finite number"),

@@ -68,7 +68,7 @@ fn random_problem(rng: &mut ChaCha8Rng) -> String {
     }
     let priors = rng.random_bool(0.5);
     if priors {
-        t.push_str("[prior]\nresidual = 1.0\n");
+        t.push_str("[sd]\nresidual = 1.0\n");
         for i in 0..nf {
             if !kinds[i] {
                 t.push_str(&format!(
@@ -589,7 +589,7 @@ fn must_test_terms_that_stop_existing_are_untestable_with_a_reason() {
     assert_eq!(r.rejected.untestable, 3 * 2);
 }
 
-/// Without [prior], a synthetic test's Satterthwaite df are unknown, so it fails min_df,
+/// Without [sd], a synthetic test's Satterthwaite df are unknown, so it fails min_df,
 /// and the sentence says why. Two crossed random factors with a fixed one give the
 /// classical quasi-F test of the fixed factor.
 #[test]

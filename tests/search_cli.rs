@@ -176,7 +176,7 @@ name = "cultivar"
 kind = "fixed"
 levels = 4
 
-[prior]
+[sd]
 residual = 1.0
 chamber = 0.5
 
@@ -562,12 +562,12 @@ fn target_power_outside_zero_one() {
 
 #[test]
 fn target_power_without_priors() {
-    let t = BASE.replace("[prior]\nresidual = 1.0\nchamber = 0.5\n", "");
+    let t = BASE.replace("[sd]\nresidual = 1.0\nchamber = 0.5\n", "");
     rejected(
         "power-no-prior",
         &t,
         Some("target_power"),
-        "needs a [prior] table",
+        "needs an [sd] table",
         &[],
     );
 }
@@ -587,7 +587,7 @@ fn target_power_without_an_effect_for_a_fixed_must_test_term() {
 #[test]
 fn power_flag_without_priors() {
     let t = BASE
-        .replace("[prior]\nresidual = 1.0\nchamber = 0.5\n", "")
+        .replace("[sd]\nresidual = 1.0\nchamber = 0.5\n", "")
         .replace("target_power = 0.8\n", "");
     rejected(
         "power-flag-no-prior",
@@ -632,18 +632,21 @@ fn space_beyond_the_limit() {
 }
 
 #[test]
-fn bad_command_line_values_are_usage_errors() {
+fn bad_command_line_values_are_refused() {
     let path = scratch("usage").join("problem.toml");
     std::fs::write(&path, BASE).expect("write");
     let p = path.to_str().expect("path");
-    for args in [
-        vec!["search", p, "--top", "0"],
-        vec!["search", p, "--power", "1.5"],
-        vec!["search", p, "--alpha", "0"],
-        vec!["search", p, "--method", "guess"],
+    // Values the argument parser accepts but the search refuses are bad input (exit 1);
+    // what the parser itself refuses is a usage error (exit 2).
+    for (args, code) in [
+        (vec!["search", p, "--top", "0"], 1),
+        (vec!["search", p, "--power", "1.5"], 1),
+        (vec!["search", p, "--alpha", "0"], 1),
+        (vec!["search", p, "--method", "guess"], 2),
+        (vec!["search", p, "--top", "ten"], 2),
     ] {
         let out = run(&args);
-        assert_eq!(out.status.code(), Some(2), "{args:?}");
+        assert_eq!(out.status.code(), Some(code), "{args:?}");
     }
 }
 

@@ -142,7 +142,7 @@ name = "bench"
 kind = "random"
 levels = 2
 within = ["greenhouse"]
-[prior]
+[sd]
 residual = 1.0
 greenhouse = 1.4
 bench = 1.2
@@ -343,7 +343,7 @@ fn binary_runs_in_every_format() {
     }
 }
 
-/// Without planning values simulate says why and what to do; too many runs is a usage error.
+/// Without planning values simulate says why and what to do; too many runs is refused too.
 #[test]
 fn refuses_what_it_cannot_simulate() {
     let out = emsplan(&["simulate", "problems/tank-split-plot.toml"]);
@@ -351,7 +351,7 @@ fn refuses_what_it_cannot_simulate() {
     let err = String::from_utf8(out.stderr).unwrap();
     assert_eq!(err.lines().count(), 1);
     assert!(
-        err.contains("problems/tank-split-plot.toml") && err.contains("[prior]"),
+        err.contains("problems/tank-split-plot.toml") && err.contains("[sd]"),
         "{err}"
     );
 
@@ -361,7 +361,7 @@ fn refuses_what_it_cannot_simulate() {
         "--runs",
         "1000000000",
     ]);
-    assert_eq!(out.status.code(), Some(2));
+    assert_eq!(out.status.code(), Some(1));
 }
 
 /// The shipped data set is what its stated command writes, byte for byte, and `analyze`
@@ -427,7 +427,7 @@ levels = 3
 name = "batch"
 kind = "random"
 levels = 4
-[prior]
+[sd]
 residual = 1.0
 operator = 1.4
 batch = 1.0
@@ -461,7 +461,7 @@ kind = "random"
 levels = 2
 population = 4
 within = ["greenhouse"]
-[prior]
+[sd]
 residual = 1.0
 greenhouse = 1.4
 bench = 1.2

@@ -241,7 +241,7 @@ levels = 2
 name = "b"
 kind = "fixed"
 levels = 2
-[prior]
+[sd]
 residual = 1.0
 [effect]
 a = 0.3

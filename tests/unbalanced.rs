@@ -354,7 +354,7 @@ fn two_stage_nested_coefficients_are_sokal_and_rohlfs() {
     assert!(close(w[1], 1.0 - n0p / n0), "{w:?}");
     // Satterthwaite (1946): df = (Σ wᵢ E(MSᵢ))² / Σ (wᵢ E(MSᵢ))² / dfᵢ, with E(MS) from
     // the planning values σ = 1 (residual), 0.5 (pen), 0.8 (farm).
-    let text = format!("{NESTED}\n[prior]\nresidual = 1.0\npen = 0.5\nfarm = 0.8\n");
+    let text = format!("{NESTED}\n[sd]\nresidual = 1.0\npen = 0.5\nfarm = 0.8\n");
     let l = layout(&text);
     let spec = emsplan::spec::parse(&text).unwrap();
     let plan = PlanningValues::from_spec(&spec, &text, &l).unwrap();

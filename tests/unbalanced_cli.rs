@@ -174,7 +174,7 @@ fn compare_remove_one_chamber() {
     assert!(coefficient(term(&v["base"], "light"), "cultivar") > 0.0);
 }
 
-/// Bad `--remove` values are usage errors (exit 2), one line naming the change.
+/// Bad `--remove` values are bad input (exit 1), one line naming the change.
 #[test]
 fn bad_removals_on_the_command_line() {
     let chambers = problem("growth-chambers.toml");
@@ -220,7 +220,7 @@ fn bad_removals_on_the_command_line() {
         let mut args = vec!["compare", chambers.as_str()];
         args.extend_from_slice(extra);
         let (code, out, err) = run(&args);
-        assert_eq!(code, 2, "{extra:?}: {err}");
+        assert_eq!(code, 1, "{extra:?}: {err}");
         assert!(out.is_empty(), "{extra:?} printed to stdout");
         assert_eq!(err.trim_end().lines().count(), 1, "{extra:?}: {err}");
         assert!(err.contains(phrase), "{extra:?}: {err}");
@@ -236,7 +236,7 @@ fn bad_removals_on_the_command_line() {
         let mut args = vec!["compare", lost.as_str()];
         args.extend_from_slice(&extra);
         let (code, _, err) = run(&args);
-        assert_eq!(code, 2, "{extra:?}: {err}");
+        assert_eq!(code, 1, "{extra:?}: {err}");
         assert_eq!(err.trim_end().lines().count(), 1, "{extra:?}: {err}");
         assert!(err.contains(phrase), "{extra:?}: {err}");
     }

@@ -96,14 +96,14 @@ pub fn simulation_note(n: &crate::simulate::SimulationNote) -> String {
     use crate::simulate::SimulationNote;
     match n {
         SimulationNote::NoVariance { terms } => format!(
-            "simulated with no variance, having no [sd]: {}",
+            "simulated with no variance, having no [sd] value: {}",
             terms.join(", ")
         ),
         SimulationNote::NoEffect { terms } => format!(
             "simulated with no effect, having no [effect]: {}",
             terms.join(", ")
         ),
-        SimulationNote::Unbalanced => "unbalanced layout: each data set is drawn over the full layout and the removed observations are dropped; expected mean squares are Hartley's (1967) synthesis coefficients times the variances, plus the fixed effects' part computed exactly for the simulated effect pattern (μ'Aμ / df). In an unbalanced layout mean squares are not scaled chi-squares in general, so F and quasi-F ratios, Satterthwaite df and the analytic power (of random terms too) are approximations; the simulated rates show how close they are here".into(),
+        SimulationNote::Unbalanced => "unbalanced layout: each data set is drawn over the full layout and the removed observations are dropped; expected mean squares are Hartley's (1967) synthesis coefficients times the planning variances (the squared [sd] values), plus the fixed effects' part computed exactly for the simulated effect pattern (μ'Aμ / df). In an unbalanced layout mean squares are not scaled chi-squares in general, so F and quasi-F ratios, Satterthwaite df and the analytic power (of random terms too) are approximations; the simulated rates show how close they are here".into(),
         SimulationNote::PatternPower { terms } => format!(
             "the analytic power of a fixed term is for the simulated effect pattern (noncentrality SS of the noise-free means / E(denominator)); `emsplan check` averages over effect patterns of the planned size: {}",
             terms

@@ -16,7 +16,7 @@ pub fn edit_note(n: &EditNote) -> String {
         }
         EditNote::UnrestrictedAfterRemoval => "with cells removed the layout is unbalanced, and the restricted convention is not defined there: the unrestricted model is used".into(),
         EditNote::NowFixed { term } => format!(
-            "{term} is now fixed: its standard deviation no longer applies (give an effect with --set effect.{term}=...)"
+            "{term} is now fixed: its planning SD no longer applies (give an effect with --set effect.{term}=...)"
         ),
         EditNote::NowRandom { term } => format!(
             "{term} is now random: its effect no longer applies (give a standard deviation with --set sd.{term}=...)"

@@ -913,7 +913,7 @@ fn planning_rows(layout: &Layout, plan: &PlanningValues, goal: &Goal) -> Vec<(St
         ),
     ];
     for (m, sd) in &plan.priors {
-        rows.push((format!("prior SD of {}", label(*m)), format!("{sd}")));
+        rows.push((format!("planning SD of {}", label(*m)), format!("{sd}")));
     }
     for (m, e) in &plan.effects {
         let v = match e {

@@ -436,13 +436,13 @@ pub fn findings(report: &CheckReport) -> Vec<String> {
 pub fn planning_notes(g: &PlanningGaps) -> Vec<String> {
     if g.no_sd {
         return vec![
-            "no [sd] table: power, minimum detectable effects and Satterthwaite df need the standard deviations of the random terms".into(),
+            "no [sd] table: power, minimum detectable effects and Satterthwaite df need planning standard deviations of the random terms and the residual".into(),
         ];
     }
     let mut notes = Vec::new();
     if !g.zero_sd.is_empty() {
         notes.push(format!(
-            "taken as zero, having no [sd]: {} (their variance adds nothing to any expected mean square, and their own tests get no power)",
+            "taken as zero, having no [sd] value: {} (their variance adds nothing to any expected mean square, and their own tests get no power)",
             g.zero_sd.join(", ")
         ));
     }

@@ -164,7 +164,7 @@ impl Problem {
                 return Err(Error::invalid(
                     power_line,
                     format!(
-                        "{what} {p} asks for power, which needs a [prior] table (the standard deviations of the random terms): add one, or leave out {what}"
+                        "{what} {p} asks for power, which needs an [sd] table (the standard deviations of the random terms): add one, or leave out {what}"
                     ),
                 ));
             }
@@ -172,7 +172,7 @@ impl Problem {
                 let term = crate::layout::term_of(s, m.live);
                 let (has, table) = match term.kind(s) {
                     Kind::Fixed => (plan.effects.contains_key(&m.live), "[effect]"),
-                    Kind::Random => (plan.priors.contains_key(&m.live), "[prior]"),
+                    Kind::Random => (plan.priors.contains_key(&m.live), "[sd]"),
                 };
                 if !has {
                     return Err(Error::invalid(
