@@ -393,8 +393,12 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             if top == 0 {
                 return Err(Error::Usage("--top must be at least 1".into()));
             }
-            print_notes(&crate::spec::read(&problem)?.0);
-            let p = Problem::from_file(&problem, alpha, power)?;
+            let (base, spec, text) = Layout::from_file(&problem)?;
+            print_notes(&spec);
+            let in_file = |e: Error| e.in_file(&problem);
+            let mut plan = PlanningValues::from_spec(&spec, &text, &base).map_err(in_file)?;
+            PlanningArgs { alpha, power }.apply(&mut plan)?;
+            let p = Problem::from_spec(&spec, &text, base, plan, power).map_err(in_file)?;
             let search = Search::new(p).map_err(|e| e.in_file(&problem))?;
             let space = search.space();
             eprintln!(
@@ -475,6 +479,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             planning,
         } => {
             let (base, spec, text) = Layout::from_file(&layout)?;
+            print_notes(&spec);
             let in_file = |e: Error| e.in_file(&layout);
             let mut plan = PlanningValues::from_spec(&spec, &text, &base).map_err(in_file)?;
             planning.apply(&mut plan)?;
