@@ -352,8 +352,10 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     unique_labels,
                 }),
             };
-            let (report, set) = crate::simulate::simulate(&layout, &plan, &request)
+            let bar = Bar::new(runs, "data sets");
+            let (report, set) = crate::simulate::simulate_with(&layout, &plan, &request, &bar)
                 .map_err(|e| e.in_file(&layout_path))?;
+            bar.finish();
             if let (Some(path), Some(set)) = (&data, &set) {
                 std::fs::write(path, render::simulate::data_csv(set)).map_err(|source| {
                     Error::Write {
@@ -413,7 +415,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 method,
                 ..Options::default()
             };
-            let bar = Bar::new(space.min(u64::MAX as u128) as u64);
+            let bar = Bar::new(space.min(u64::MAX as u128) as u64, "candidates");
             let report = search
                 .run(&options, &bar)
                 .map_err(|e| e.in_file(&problem))?;
@@ -584,17 +586,20 @@ fn write_report(
 struct Bar {
     start: std::time::Instant,
     total: u64,
+    /// What is counted: "candidates", "data sets".
+    unit: &'static str,
     done: std::sync::atomic::AtomicU64,
     tty: bool,
     bar: std::sync::OnceLock<indicatif::ProgressBar>,
 }
 
 impl Bar {
-    fn new(total: u64) -> Bar {
+    fn new(total: u64, unit: &'static str) -> Bar {
         use std::io::IsTerminal;
         Bar {
             start: std::time::Instant::now(),
             total,
+            unit,
             done: Default::default(),
             tty: std::io::stderr().is_terminal(),
             bar: std::sync::OnceLock::new(),
@@ -608,7 +613,7 @@ impl Bar {
     }
 }
 
-impl crate::search::Progress for Bar {
+impl crate::progress::Progress for Bar {
     fn advance(&self, n: u64) {
         use std::sync::atomic::Ordering;
         let done = self.done.fetch_add(n, Ordering::Relaxed) + n;
@@ -620,9 +625,8 @@ impl crate::search::Progress for Bar {
                 Some(self.total),
                 indicatif::ProgressDrawTarget::stderr(),
             );
-            if let Ok(style) = indicatif::ProgressStyle::with_template(
-                "{bar:40} {pos}/{len} candidates ({eta} left)",
-            ) {
+            let template = format!("{{bar:40}} {{pos}}/{{len}} {} ({{eta}} left)", self.unit);
+            if let Ok(style) = indicatif::ProgressStyle::with_template(&template) {
                 b.set_style(style);
             }
             b

@@ -66,6 +66,7 @@ pub mod findings;
 pub mod goal;
 pub mod layout;
 pub mod planning;
+pub mod progress;
 pub mod render;
 pub mod repair;
 pub mod report;

@@ -78,6 +78,7 @@ use crate::errorterm::Verdict;
 use crate::findings::DenominatorPart;
 use crate::layout::{Convention, Kind, Layout, SumsOfSquares};
 use crate::planning::{self, Effect, PlanningValues, TestPlan};
+use crate::progress::Progress;
 use crate::term::REPLICATE;
 
 /// Confidence level of the intervals around simulated rates and mean squares.
@@ -611,6 +612,11 @@ impl Simulator {
     /// Simulates `runs` data sets and tallies every term's mean square and every test's
     /// rejections, under the planning values and under each test's null.
     pub fn monte_carlo(&self, seed: u64, runs: u64) -> Tally {
+        self.monte_carlo_with(seed, runs, &crate::progress::Quiet)
+    }
+
+    /// `monte_carlo`, telling `progress` of each block of data sets done.
+    pub fn monte_carlo_with(&self, seed: u64, runs: u64, progress: &dyn Progress) -> Tally {
         let blocks = runs.div_ceil(BLOCK);
         let tallies: Vec<Tally> = (0..blocks)
             .into_par_iter()
@@ -618,9 +624,11 @@ impl Simulator {
                 || self.scratch(),
                 |x, b| {
                     let mut tally = Tally::new(self.analysis.model.terms.len(), self.tests.len());
-                    for run in b * BLOCK..((b + 1) * BLOCK).min(runs) {
+                    let end = ((b + 1) * BLOCK).min(runs);
+                    for run in b * BLOCK..end {
                         self.run(seed, run, x, &mut tally);
                     }
+                    progress.advance(end - b * BLOCK);
                     tally
                 },
             )
@@ -1218,6 +1226,16 @@ pub fn simulate(
     plan: &PlanningValues,
     request: &Request,
 ) -> Result<(SimulateReport, Option<DataSet>), Error> {
+    simulate_with(layout, plan, request, &crate::progress::Quiet)
+}
+
+/// `simulate`, telling `progress` how many data sets are done.
+pub fn simulate_with(
+    layout: &Layout,
+    plan: &PlanningValues,
+    request: &Request,
+    progress: &dyn Progress,
+) -> Result<(SimulateReport, Option<DataSet>), Error> {
     let sim = Simulator::new(layout, plan)?;
     let a = &sim.analysis;
     let model = &a.model;
@@ -1248,7 +1266,8 @@ pub fn simulate(
         .iter()
         .map(|e| e.as_ref().map(|e| (e.verdict, e.denominator.clone())))
         .collect();
-    let tally = (request.runs > 0).then(|| sim.monte_carlo(request.seed, request.runs));
+    let tally =
+        (request.runs > 0).then(|| sim.monte_carlo_with(request.seed, request.runs, progress));
 
     let terms = model
         .terms

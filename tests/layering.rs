@@ -10,6 +10,7 @@ use std::path::Path;
 const LAYERS: &[(&str, u32)] = &[
     ("error", 0),
     ("dist", 0),
+    ("progress", 0),
     ("spec", 1),
     ("layout", 2),
     ("term", 2),

@@ -24,13 +24,7 @@ pub struct Entry {
 }
 
 /// Reports progress (candidates done, pruned ones included) to whoever runs the search.
-pub trait Progress: Sync {
-    fn advance(&self, _candidates: u64) {}
-}
-
-/// No progress report.
-pub struct Quiet;
-impl Progress for Quiet {}
+pub use crate::progress::{Progress, Quiet};
 
 /// The ranking of feasible candidates: cheapest first (costs equal to a millionth of a
 /// unit tie), then the larger smallest denominator df, then the higher smallest power.
