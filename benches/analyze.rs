@@ -12,7 +12,7 @@ use criterion::{Criterion, Throughput, criterion_group, criterion_main};
 use emsplan::analyze::{analyze, parse_data};
 use emsplan::layout::Layout;
 use emsplan::planning::PlanningValues;
-use emsplan::render::{Format, analyze::render, simulate::data_csv};
+use emsplan::render::{Format, Width, analyze::render, simulate::data_csv};
 use emsplan::simulate::{Simulator, data_set};
 
 /// Four sites (fixed), five blocks in each (random), ten varieties (fixed), 500 plants
@@ -58,7 +58,7 @@ fn bench(c: &mut Criterion) {
         b.iter(|| {
             let obs = parse_data("bench.csv", csv.as_bytes(), &layout, None).unwrap();
             let report = analyze(&layout, &obs, 0.05).unwrap();
-            render(&report, Format::Text)
+            render(&report, Format::Text, Width::DEFAULT)
         })
     });
     // The same data, unbalanced: the fifth block of the fourth site lost, and every
@@ -81,7 +81,7 @@ fn bench(c: &mut Criterion) {
             let obs = parse_data("bench.csv", unbalanced.as_bytes(), &layout, None).unwrap();
             let report = analyze(&layout, &obs, 0.05).unwrap();
             assert!(report.imbalance.is_some());
-            render(&report, Format::Text)
+            render(&report, Format::Text, Width::DEFAULT)
         })
     });
     group.finish();

@@ -364,7 +364,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     }
                 })?;
             }
-            Ok(render::simulate::render(&report, format))
+            Ok(render::simulate::render(&report, format, text_width()))
         }
         Command::Analyze {
             layout: layout_path,
@@ -380,7 +380,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
 
             let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
-            Ok(render::analyze::render(&report, format))
+            Ok(render::analyze::render(&report, format, text_width()))
         }
         Command::Search {
             problem,
@@ -420,7 +420,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 .run(&options, &bar)
                 .map_err(|e| e.in_file(&problem))?;
             bar.finish();
-            Ok(render::search::render(&report, format))
+            Ok(render::search::render(&report, format, text_width()))
         }
         Command::Compare {
             base,
@@ -519,6 +519,24 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             write_report(&report, output.as_deref(), markdown)
         }
     }
+}
+
+/// The width text output is laid out to: `COLUMNS` when it holds a positive whole
+/// number, else the terminal's width when stdout is a terminal, else 100 columns.
+fn text_width() -> render::Width {
+    use std::io::IsTerminal;
+    let columns = std::env::var("COLUMNS")
+        .ok()
+        .and_then(|c| c.trim().parse::<usize>().ok())
+        .filter(|&c| c > 0)
+        .or_else(|| {
+            let out = std::io::stdout();
+            if !out.is_terminal() {
+                return None;
+            }
+            terminal_size::terminal_size_of(&out).map(|(w, _)| usize::from(w.0))
+        });
+    columns.map_or(render::Width::DEFAULT, render::Width::new)
 }
 
 /// The command line as typed, for the report's reproduction note.

@@ -282,7 +282,10 @@ fn the_binary_analyses_the_shipped_unbalanced_data() {
         text.contains("Unbalanced data: 94 of the layout's 108 observations"),
         "{text}"
     );
-    assert!(text.contains("(quasi)"), "synthetic tests: {text}");
+    assert!(
+        text.contains("combined (below)") && text.contains("Quasi-F tests"),
+        "synthetic tests: {text}"
+    );
 }
 
 /// A fixed level with no observation at all cannot be compared: refused, naming it.

@@ -62,7 +62,10 @@ fn every_shipped_problem_runs_in_every_format() {
                         "{p}: the caution closes the output"
                     );
                 }
-                "csv" => assert!(stdout.starts_with("rank,structure,levels,cost"), "{p}"),
+                "csv" => assert!(
+                    stdout.starts_with("rank,structure,cost,observations,replicates,"),
+                    "{p}: {stdout}"
+                ),
                 _ => {}
             }
         }

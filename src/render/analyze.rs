@@ -1,7 +1,9 @@
 //! Rendering of `analyze` results.
 
-use super::analyze_words::NEGATIVE_ADVICE;
-use super::{Format, csv_table, json, markdown_table, text_table};
+use super::text::{number, p_value, same_decimals};
+use super::{
+    Format, Page, Width, and_list, combination, count, csv_table, json, p_equals, sentence,
+};
 use crate::analyze::{AnalyzeReport, AnovaRow, MeansTable};
 use crate::errorterm::Verdict;
 use crate::layout::{Kind, SumsOfSquares};
@@ -9,45 +11,32 @@ use crate::layout::{Kind, SumsOfSquares};
 /// The caution that goes with an analysis people will act on.
 pub const ANALYSIS_CAUTION: &str = "The tests take the layout's error terms as given: they are right only if the layout file describes how the experiment was really run (what was randomised to what, what is nested in what). Have a statistician review conclusions that carry real cost or risk.";
 
-/// A number to about four significant digits, in plain or scientific notation.
-pub fn sig(x: f64) -> String {
-    if !x.is_finite() {
-        return "-".into();
-    }
-    if x == 0.0 {
-        return "0".into();
-    }
-    let a = x.abs();
-    if !(1e-3..1e7).contains(&a) {
-        return format!("{x:.3e}");
-    }
-    let digits = (3 - a.log10().floor() as i32).max(0) as usize;
-    format!("{x:.digits$}")
-}
-
-/// A p-value to four decimals, or `< 0.0001`.
-pub fn p_text(p: f64) -> String {
-    if !p.is_finite() {
-        "-".into()
-    } else if p < 1e-4 {
-        "< 0.0001".into()
-    } else {
-        format!("{p:.4}")
-    }
-}
+/// What the "tested over" cell says when the error term is listed under the table.
+const SYNTHETIC_CELL: &str = "combined (below)";
 
 fn opt(x: Option<f64>, f: fn(f64) -> String) -> String {
     x.map_or("-".into(), f)
 }
 
-fn over(row: &AnovaRow) -> String {
+/// The error term in a table cell: a mean square's term, or for a synthetic test a
+/// pointer to the list of combinations under the table.
+fn over_cell(row: &AnovaRow) -> String {
     match &row.test {
         None => "-".into(),
         Some(t) => match t.verdict {
-            Verdict::Exact | Verdict::QuasiF => super::words::denominator(&t.denominator),
-            Verdict::Untestable => "none (untestable)".into(),
+            Verdict::Exact => t.denominator[0].term.clone(),
+            Verdict::QuasiF => SYNTHETIC_CELL.into(),
+            Verdict::Untestable => "no error term".into(),
             Verdict::NotEstimable => "none (0 df)".into(),
         },
+    }
+}
+
+/// The error term written out in full, for CSV: empty when there is none.
+fn over_full(row: &AnovaRow) -> String {
+    match &row.test {
+        Some(t) if t.verdict.is_testable() => combination(&t.denominator),
+        _ => String::new(),
     }
 }
 
@@ -67,27 +56,21 @@ fn rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
         .iter()
         .map(|row| {
             let t = row.test.as_ref();
-            let f = t.and_then(|t| t.f);
-            let quasi = t.is_some_and(|t| t.verdict == Verdict::QuasiF);
             vec![
                 row.label.clone(),
                 row.df.to_string(),
-                sig(row.ss),
-                opt(row.ms, sig),
-                over(row),
-                match f {
-                    Some(f) if quasi => format!("{} (quasi)", sig(f)),
-                    Some(f) => sig(f),
-                    None => "-".into(),
-                },
-                opt(t.and_then(|t| t.denominator_df), sig),
-                opt(t.and_then(|t| t.p), p_text),
+                number(row.ss),
+                opt(row.ms, number),
+                over_cell(row),
+                opt(t.and_then(|t| t.f), number),
+                opt(t.and_then(|t| t.denominator_df), number),
+                opt(t.and_then(|t| t.p), p_value),
             ]
         })
         .collect()
 }
 
-const CSV_HEADER: [&str; 11] = [
+const CSV_HEADER: [&str; 12] = [
     "term",
     "kind",
     "df",
@@ -95,17 +78,21 @@ const CSV_HEADER: [&str; 11] = [
     "mean_square",
     "tested_over",
     "verdict",
+    "denominator_ms",
     "f",
     "denominator_df",
     "p",
     "variance_component",
 ];
 
+/// A number for CSV: the shortest text that reads back as the same f64; empty when
+/// missing or not finite.
 fn plain(x: Option<f64>) -> String {
     x.filter(|v| v.is_finite())
         .map_or(String::new(), |v| v.to_string())
 }
 
+/// One row per term of the analysis of variance.
 fn csv_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
     r.terms
         .iter()
@@ -120,14 +107,11 @@ fn csv_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
                 row.label.clone(),
                 kind(row.kind).into(),
                 row.df.to_string(),
-                row.ss.to_string(),
+                plain(Some(row.ss)),
                 plain(row.ms),
-                if t.is_some() {
-                    over(row)
-                } else {
-                    String::new()
-                },
+                over_full(row),
                 t.map_or(String::new(), |t| super::check::code(t.verdict).into()),
+                plain(t.and_then(|t| t.denominator_ms)),
                 plain(t.and_then(|t| t.f)),
                 plain(t.and_then(|t| t.denominator_df)),
                 plain(t.and_then(|t| t.p)),
@@ -144,6 +128,8 @@ fn kind(k: Kind) -> &'static str {
     }
 }
 
+const COMPONENT_HEADER: [&str; 5] = ["component", "term", "estimate", "sd", "note"];
+
 fn component_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
     r.components
         .iter()
@@ -151,10 +137,10 @@ fn component_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
             vec![
                 super::words::symbol(crate::layout::Kind::Random, c.residual, &c.short_label),
                 c.term.clone(),
-                opt(c.estimate, sig),
-                opt(c.sd, sig),
+                opt(c.estimate, number),
+                opt(c.sd, number),
                 if c.negative {
-                    "NEGATIVE".into()
+                    "negative (see below)".into()
                 } else if c.estimate.is_none() {
                     "not estimable".into()
                 } else {
@@ -165,8 +151,6 @@ fn component_rows(r: &AnalyzeReport) -> Vec<Vec<String>> {
         .collect()
 }
 
-const COMPONENT_HEADER: [&str; 5] = ["component", "term", "estimate", "sd", "flag"];
-
 fn title(r: &AnalyzeReport) -> String {
     if r.name.is_empty() {
         "Layout".into()
@@ -175,110 +159,147 @@ fn title(r: &AnalyzeReport) -> String {
     }
 }
 
-fn explanations(r: &AnalyzeReport) -> Vec<String> {
-    let mut out = vec![format!(
-        "Each term is tested over its planned error term ({} convention); p is the upper tail of the F distribution.",
-        r.convention.name()
-    )];
-    if r.terms.iter().any(|t| {
-        t.test
-            .as_ref()
-            .is_some_and(|x| x.verdict == Verdict::QuasiF)
-    }) {
-        out.push("A quasi-F divides by a combination of mean squares; its den. df are Satterthwaite's (1946) approximation from these mean squares, so its p is approximate.".into());
+/// What the tests found, in two sentences: the terms significant at alpha, and those
+/// that are not.
+fn findings(r: &AnalyzeReport) -> Option<String> {
+    let tested: Vec<(&AnovaRow, f64)> = r
+        .terms
+        .iter()
+        .filter_map(|row| Some((row, row.test.as_ref()?.p?)))
+        .collect();
+    if tested.is_empty() {
+        return None;
     }
+    let words = |rows: Vec<&(&AnovaRow, f64)>| -> String {
+        and_list(
+            &rows
+                .iter()
+                .map(|(row, p)| format!("{} ({})", row.label, p_equals(*p)))
+                .collect::<Vec<_>>(),
+        )
+    };
+    let (significant, not): (Vec<_>, Vec<_>) = tested.iter().partition(|(_, p)| *p <= r.alpha);
+    let mut parts = Vec::new();
+    if !significant.is_empty() {
+        parts.push(format!(
+            "Significant at alpha = {}: {}.",
+            r.alpha,
+            words(significant)
+        ));
+    }
+    if !not.is_empty() {
+        parts.push(format!(
+            "Not significant at alpha = {}: {}.",
+            r.alpha,
+            words(not)
+        ));
+    }
+    Some(parts.join(" "))
+}
+
+/// The synthetic error terms, one item per term.
+fn synthetic_items(r: &AnalyzeReport) -> Vec<String> {
+    r.terms
+        .iter()
+        .filter_map(|row| {
+            let t = row.test.as_ref()?;
+            (t.verdict == Verdict::QuasiF)
+                .then(|| format!("{}: {}", row.label, combination(&t.denominator)))
+        })
+        .collect()
+}
+
+/// The report in text or Markdown.
+fn write(r: &AnalyzeReport, page: Page) -> String {
+    let mut out = match page {
+        Page::Text(_) => page.paragraph(&format!(
+            "{}: analysis of variance of {} ({}), {} observations, {} convention",
+            title(r),
+            r.response,
+            r.data,
+            r.observations,
+            r.convention.name()
+        )),
+        Page::Markdown => format!(
+            "## {}: analysis of variance of {}\n\n{} observations from `{}`, {} convention.\n",
+            title(r),
+            r.response,
+            r.observations,
+            r.data,
+            r.convention.name()
+        ),
+    };
+    out.push('\n');
+    if let Some(t) = imbalance_text(r) {
+        out.push_str(&page.paragraph(&t));
+        out.push('\n');
+    }
+    out.push_str(&page.table(&HEADER, rows(r)));
+    out.push('\n');
+    if let Some(f) = findings(r) {
+        out.push_str(&page.paragraph(&f));
+        out.push('\n');
+    }
+    out.push_str(&page.paragraph(&format!(
+        "Each term is tested over its planned error term ({} convention); p is the upper tail of the F distribution on the term's df and the den. df.",
+        r.convention.name()
+    )));
+    let synthetic = synthetic_items(r);
+    if !synthetic.is_empty() {
+        out.push('\n');
+        out.push_str(&page.paragraph(
+            "Quasi-F tests: these terms are tested over a combined error term, a combination of mean squares whose expectation is the term's own expected mean square without its component; their den. df are Satterthwaite's (1946) approximation from these mean squares, so their p-values are approximate.",
+        ));
+        if let Page::Markdown = page {
+            out.push('\n');
+        }
+        for s in &synthetic {
+            out.push_str(&page.item(s));
+        }
+    }
+    if !r.components.is_empty() {
+        out.push_str(&page.heading(
+            "Variance components, by the method of moments (the expected mean squares set equal to the observed ones)",
+        ));
+        out.push_str(&page.table(&COMPONENT_HEADER, component_rows(r)));
+    }
+    out.push('\n');
+    out.push_str(&page.paragraph(&format!("Grand mean {}.", number(r.grand_mean))));
+    for m in &r.means {
+        out.push_str(&page.heading(&format!("Means of {}", means_heading(m))));
+        out.push_str(&page.table(&means_header(m), mean_rows(m)));
+    }
+    if !r.notes.is_empty() {
+        out.push_str(&page.heading("What needs attention"));
+        for n in r.notes.iter().map(super::analyze_words::note) {
+            out.push_str(&page.item(&sentence(&n)));
+        }
+    }
+    out.push('\n');
+    out.push_str(&page.paragraph(ANALYSIS_CAUTION));
     out
 }
 
-pub fn render(r: &AnalyzeReport, format: Format) -> String {
+/// The analysis in `format`; text is laid out to `width`.
+pub fn render(r: &AnalyzeReport, format: Format, width: Width) -> String {
     match format {
         Format::Json => json(r),
         Format::Csv => csv_table(&CSV_HEADER, csv_rows(r)),
-        Format::Markdown => {
-            let mut out = format!(
-                "## {}: analysis of variance of {}\n\n{} observations from `{}`, {} convention.\n\n",
-                title(r),
-                r.response,
-                r.observations,
-                r.data,
-                r.convention.name()
-            );
-            if let Some(t) = imbalance_text(r) {
-                out.push_str(&format!("{t}\n\n"));
-            }
-            out.push_str(&markdown_table(&HEADER, rows(r)));
-            out.push('\n');
-            for e in explanations(r) {
-                out.push_str(&format!("{e}\n"));
-            }
-            if !r.components.is_empty() {
-                out.push_str("\n### Variance components (method of moments)\n\n");
-                out.push_str(&markdown_table(&COMPONENT_HEADER, component_rows(r)));
-            }
-            out.push_str(&format!(
-                "\n### Means\n\nGrand mean {}.\n",
-                sig(r.grand_mean)
-            ));
-            for m in &r.means {
-                out.push_str(&format!("\n{}\n\n", means_heading(m)));
-                out.push_str(&markdown_table(&means_header(m), mean_rows(m)));
-            }
-            if !r.notes.is_empty() {
-                out.push_str("\n### What needs attention\n\n");
-                for n in r.notes.iter().map(super::analyze_words::note) {
-                    out.push_str(&format!("- {n}\n"));
-                }
-            }
-            out.push_str(&format!("\n{ANALYSIS_CAUTION}\n"));
-            out
-        }
-        Format::Text => {
-            let mut out = format!(
-                "{}: analysis of variance of {} ({}), {} observations, {} convention\n\n",
-                title(r),
-                r.response,
-                r.data,
-                r.observations,
-                r.convention.name()
-            );
-            if let Some(t) = imbalance_text(r) {
-                out.push_str(&format!("{t}\n\n"));
-            }
-            out.push_str(&text_table(&HEADER, rows(r)));
-            out.push('\n');
-            for e in explanations(r) {
-                out.push_str(&format!("{e}\n"));
-            }
-            if !r.components.is_empty() {
-                out.push_str("\nVariance components, by the method of moments from the expected mean squares:\n\n");
-                out.push_str(&text_table(&COMPONENT_HEADER, component_rows(r)));
-                if r.components.iter().any(|c| c.negative) {
-                    out.push_str(&format!("  NEGATIVE: {NEGATIVE_ADVICE}.\n"));
-                }
-            }
-            out.push_str(&format!("\nGrand mean {}.\n", sig(r.grand_mean)));
-            for m in &r.means {
-                out.push_str(&format!("\nMeans of {}:\n\n", means_heading(m)));
-                out.push_str(&text_table(&means_header(m), mean_rows(m)));
-            }
-            if !r.notes.is_empty() {
-                out.push_str("\nWhat needs attention:\n");
-                for n in r.notes.iter().map(super::analyze_words::note) {
-                    out.push_str(&format!("  - {n}\n"));
-                }
-            }
-            out.push_str(&format!("\n{ANALYSIS_CAUTION}\n"));
-            out
-        }
+        Format::Markdown => write(r, Page::Markdown),
+        Format::Text => write(r, Page::Text(width)),
     }
 }
 
 /// `cultivar (6 observations per mean)`, or for unequal counts the raw means' heading.
 fn means_heading(m: &MeansTable) -> String {
     match m.per_mean {
-        Some(n) => format!("{} ({n} observations per mean)", m.term),
+        Some(n) => format!(
+            "{} ({} per mean)",
+            m.term,
+            count(n, "observation", "observations")
+        ),
         None => format!(
-            "{} (raw means of the observations present; n is each one's count)",
+            "{} (raw means of the observations present, n of them each)",
             m.term
         ),
     }
@@ -294,11 +315,13 @@ fn means_header(m: &MeansTable) -> Vec<&str> {
 }
 
 fn mean_rows(m: &MeansTable) -> Vec<Vec<String>> {
+    let means = same_decimals(&m.rows.iter().map(|row| row.mean).collect::<Vec<_>>());
     m.rows
         .iter()
-        .map(|row| {
+        .zip(means)
+        .map(|(row, mean)| {
             let mut cells = row.levels.clone();
-            cells.push(sig(row.mean));
+            cells.push(mean);
             if m.per_mean.is_none() {
                 cells.push(row.observations.to_string());
             }
@@ -307,7 +330,7 @@ fn mean_rows(m: &MeansTable) -> Vec<Vec<String>> {
         .collect()
 }
 
-/// What unbalanced data lack and how they were analysed, in one sentence.
+/// What unbalanced data lack and how they were analysed.
 fn imbalance_text(r: &AnalyzeReport) -> Option<String> {
     let i = r.imbalance.as_ref()?;
     let mut missing = Vec::new();
@@ -335,30 +358,4 @@ fn imbalance_text(r: &AnalyzeReport) -> Option<String> {
         i.full_observations,
         missing.join(", ")
     ))
-}
-
-fn count(n: u64, one: &str, many: &str) -> String {
-    format!("{n} {}", if n == 1 { one } else { many })
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn numbers_to_four_significant_digits() {
-        for (x, want) in [
-            (0.0, "0"),
-            (1234.5678, "1235"),
-            (12.345678, "12.35"),
-            (0.012346, "0.01235"),
-            (0.00012346, "1.235e-4"),
-            (-3.5, "-3.500"),
-            (f64::NAN, "-"),
-        ] {
-            assert_eq!(sig(x), want, "{x}");
-        }
-        assert_eq!(p_text(0.00001), "< 0.0001");
-        assert_eq!(p_text(0.04567), "0.0457");
-    }
 }

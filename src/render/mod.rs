@@ -1,5 +1,6 @@
 //! Renderers: the only place that formats. Each takes a job's result struct and returns
-//! text; none computes statistics.
+//! text; none computes statistics. Terminal text is laid out by [`text`], to a [`Width`]
+//! that `cli` chooses.
 
 pub mod analyze;
 pub mod analyze_words;
@@ -10,9 +11,10 @@ pub mod search;
 pub mod search_words;
 pub mod simulate;
 pub mod svg;
+pub mod text;
 pub mod words;
 
-use comfy_table::{Table, presets};
+pub use text::Width;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
 pub enum Format {
@@ -22,28 +24,12 @@ pub enum Format {
     Csv,
 }
 
-/// A plain terminal table: a rule under the header, columns aligned, no colour.
+/// A plain terminal table at its natural width (no wrapping): a rule under the header,
+/// columns aligned, no colour. [`text::Table`] lays one out to fit a width.
 pub fn text_table(header: &[&str], rows: Vec<Vec<String>>) -> String {
-    let mut table = Table::new();
-    table.load_style(presets::NOTHING);
-    table.set_header(header.to_vec());
-    let rule: Vec<String> = header
-        .iter()
-        .map(|h| "-".repeat(h.chars().count().max(2)))
-        .collect();
-    table.add_row(rule);
-    for row in rows {
-        table.add_row(row);
-    }
-    for column in table.column_iter_mut() {
-        column.set_padding((0, 2));
-    }
-    let mut out = String::new();
-    for line in table.lines() {
-        out.push_str(line.trim_end());
-        out.push('\n');
-    }
-    out
+    text::Table::new(header)
+        .with_rows(rows)
+        .render(Width::UNLIMITED)
 }
 
 /// A GitHub-flavoured Markdown table; pipes in cells are escaped.
@@ -87,16 +73,92 @@ pub fn json<T: serde::Serialize>(value: &T) -> String {
     s
 }
 
-/// A number for a table: whole numbers bare, others to a sensible precision.
+/// A number for a reader: [`text::number`] (four significant digits, whole numbers
+/// bare, `-` when not finite).
 pub fn num(x: f64) -> String {
-    if !x.is_finite() {
-        return "-".into();
+    text::number(x)
+}
+
+/// Where a renderer's words go: terminal text laid out to a width, or Markdown (which
+/// its viewer wraps). One renderer body can write both.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Page {
+    Text(Width),
+    Markdown,
+}
+
+impl Page {
+    /// A paragraph: wrapped to the width, or one Markdown line.
+    pub fn paragraph(self, s: &str) -> String {
+        match self {
+            Page::Text(w) => text::paragraph(s, w),
+            Page::Markdown => format!("{s}\n"),
+        }
     }
-    if x == x.round() && x.abs() < 1e12 {
-        format!("{}", x as i64)
-    } else if x.abs() >= 100.0 {
-        format!("{x:.1}")
+
+    /// A list item: `  - ` with a hanging indent, or a Markdown `- ` item.
+    pub fn item(self, s: &str) -> String {
+        match self {
+            Page::Text(w) => text::item(s, w),
+            Page::Markdown => format!("- {s}\n"),
+        }
+    }
+
+    /// A table that fits the width, or a Markdown table.
+    pub fn table<S: AsRef<str>>(self, header: &[S], rows: Vec<Vec<String>>) -> String {
+        match self {
+            Page::Text(w) => text::Table::new(header).with_rows(rows).render(w),
+            Page::Markdown => {
+                let header: Vec<&str> = header.iter().map(AsRef::as_ref).collect();
+                markdown_table(&header, rows)
+            }
+        }
+    }
+
+    /// A section heading with a blank line before and after: `Means of light:` in text,
+    /// `### Means of light` in Markdown.
+    pub fn heading(self, s: &str) -> String {
+        match self {
+            Page::Text(w) => format!("\n{}\n", text::paragraph(&format!("{s}:"), w)),
+            Page::Markdown => format!("\n### {s}\n\n"),
+        }
+    }
+}
+
+/// A sentence from a list of notes: the note as written, with a full stop added when it
+/// has no closing punctuation.
+pub fn sentence(note: &str) -> String {
+    let t = note.trim_end();
+    if t.ends_with(['.', '!', '?', ':']) {
+        t.to_string()
     } else {
-        format!("{x:.2}")
+        format!("{t}.")
+    }
+}
+
+/// A verdict and a combination of mean squares in words (see `words`).
+pub use words::{denominator as combination, verdict as verdict_words};
+
+/// `p = 0.0332`, or `p < 0.0001`.
+pub fn p_equals(p: f64) -> String {
+    let v = text::p_value(p);
+    if v.starts_with('<') {
+        format!("p {v}")
+    } else {
+        format!("p = {v}")
+    }
+}
+
+/// `1 observation`, `3 observations`.
+pub fn count(n: u64, one: &str, many: &str) -> String {
+    format!("{n} {}", if n == 1 { one } else { many })
+}
+
+/// `a`, `a and b`, `a, b and c`.
+pub fn and_list(items: &[String]) -> String {
+    match items {
+        [] => String::new(),
+        [one] => one.clone(),
+        [rest @ .., last] => format!("{} and {last}", rest.join(", ")),
     }
 }
