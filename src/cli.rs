@@ -306,6 +306,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     &crate::check::check_both(&layout, &plan, &goal)
                         .map_err(|e| e.in_file(&path))?,
                     format,
+                    text_width(),
                 )),
                 other => {
                     let c = match other {
@@ -316,6 +317,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     Ok(render::check::render(
                         &check_with_goal(&layout, c, &plan, &goal)?,
                         format,
+                        text_width(),
                     ))
                 }
             }
@@ -470,7 +472,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 notes,
                 convention.map(Convention::from),
             )?;
-            Ok(render::compare::render(&comparison, format))
+            Ok(render::compare::render(&comparison, format, text_width()))
         }
         Command::Report {
             layout,

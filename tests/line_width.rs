@@ -65,7 +65,7 @@ fn own_cases() -> Vec<Case> {
         if root().join(&data).exists() {
             cases.push(case(format!("analyze {path}"), &["analyze", &path, &data]));
         }
-        if has_table(&text, "prior") {
+        if has_table(&text, "sd") {
             cases.push(case(
                 format!("simulate {path}"),
                 &["simulate", &path, "--runs", "40"],

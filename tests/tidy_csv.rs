@@ -115,12 +115,12 @@ fn simulate_csv_is_one_row_per_term_in_full_precision() {
             "power rate",
         );
         let undefined = &row[column(&header, "denominator_not_positive")];
-        if t["test"]["verdict"] == "synthetic" {
+        if t["test"]["verdict"] == "quasi_f" {
             assert_eq!(undefined, &t["test"]["undefined"].to_string());
         } else {
             assert_eq!(
                 undefined, "",
-                "{}: only synthetic tests count these",
+                "{}: only quasi-F tests count these",
                 t["label"]
             );
         }

@@ -1,7 +1,7 @@
 //! Rendering of `check` results.
 
 use super::words::{self, CAUTION, LEGEND, ems as ems_text, tested_over};
-use super::{Format, csv_table, json, markdown_table, num, text_table};
+use super::{Format, Page, Width, csv_table, json, markdown_table, num};
 use crate::errorterm::Verdict;
 use crate::findings::{BothReport, CheckReport, TermReport, TestReport};
 
@@ -163,84 +163,74 @@ fn cost_text(report: &CheckReport) -> Option<String> {
     Some(out)
 }
 
-fn planning_text(report: &CheckReport, bullet: &str) -> String {
-    let mut out = String::new();
+/// The check in words: the table, the legend, the unbalanced notes, the planning notes,
+/// the cost, the caution and what needs attention, laid out for `page`.
+fn write(report: &CheckReport, page: Page) -> String {
+    let mut out = match page {
+        Page::Markdown => format!(
+            "## {}\n\n{} convention, {} observations.\n\n",
+            title(report),
+            report.convention.name(),
+            report.observations
+        ),
+        Page::Text(_) => {
+            page.paragraph(&format!(
+                "{}: {} convention, {} observations",
+                title(report),
+                report.convention.name(),
+                report.observations
+            )) + "\n"
+        }
+    };
+    out.push_str(&page.table(header(report), rows(report)));
+    out.push('\n');
+    out.push_str(&page.paragraph(LEGEND));
+    if let Some(u) = &report.unbalanced {
+        out.push('\n');
+        out.push_str(&page.paragraph(&words::unbalanced_line(u)));
+        for n in words::unbalanced_notes(u) {
+            out.push_str(&page.item(&n));
+        }
+    }
     if planned(report) {
-        out.push_str(&format!(
-            "\nPower at alpha = {}. min. effect: the smallest effect found with power {} (fixed terms: root mean square of effects; random terms: standard deviation), in the response's units.\n",
+        out.push('\n');
+        out.push_str(&page.paragraph(&format!(
+            "Power at alpha = {}. min. effect: the smallest effect found with power {} (fixed terms: root mean square of effects; random terms: standard deviation), in the response's units.",
             report.alpha, report.target_power
-        ));
+        )));
     }
     for n in words::planning_notes(&report.planning_gaps) {
-        out.push_str(&format!("{bullet}{n}\n"));
+        out.push_str(&page.item(&n));
     }
     if let Some(c) = cost_text(report) {
-        out.push_str(&format!("\n{c}\n"));
+        out.push('\n');
+        out.push_str(&page.paragraph(&c));
     }
     if planned(report) {
-        out.push_str(&format!("\n{CAUTION}\n"));
+        out.push('\n');
+        out.push_str(&page.paragraph(CAUTION));
+    }
+    let findings = words::findings(report);
+    if findings.is_empty() {
+        if let Page::Text(_) = page {
+            out.push('\n');
+            out.push_str(&page.paragraph("Every term with df has an exact F test."));
+        }
+    } else {
+        out.push_str(&page.heading("What needs attention, and why"));
+        for f in &findings {
+            out.push_str(&page.item(f));
+        }
     }
     out
 }
 
-/// What an unbalanced layout adds: what was removed, which sums of squares, the notes.
-fn unbalanced_text(report: &CheckReport, bullet: &str) -> String {
-    let Some(u) = &report.unbalanced else {
-        return String::new();
-    };
-    let mut out = format!("\n{}\n", words::unbalanced_line(u));
-    for n in words::unbalanced_notes(u) {
-        out.push_str(&format!("{bullet}{n}\n"));
-    }
-    out
-}
-
-pub fn render(report: &CheckReport, format: Format) -> String {
+pub fn render(report: &CheckReport, format: Format, width: Width) -> String {
     match format {
         Format::Json => json(report),
         Format::Csv => csv_table(&CSV_HEADER, csv_rows(report)),
-        Format::Markdown => {
-            let mut out = format!(
-                "## {}\n\n{} convention, {} observations.\n\n",
-                title(report),
-                report.convention.name(),
-                report.observations
-            );
-            out.push_str(&markdown_table(header(report), rows(report)));
-            out.push_str(&format!("\n{LEGEND}\n"));
-            out.push_str(&unbalanced_text(report, "- "));
-            out.push_str(&planning_text(report, "- "));
-            let findings = words::findings(report);
-            if !findings.is_empty() {
-                out.push_str("\n### What needs attention\n\n");
-                for f in &findings {
-                    out.push_str(&format!("- {f}\n"));
-                }
-            }
-            out
-        }
-        Format::Text => {
-            let mut out = format!(
-                "{}: {} convention, {} observations\n\n",
-                title(report),
-                report.convention.name(),
-                report.observations
-            );
-            out.push_str(&text_table(header(report), rows(report)));
-            out.push_str(&format!("\n{LEGEND}\n"));
-            out.push_str(&unbalanced_text(report, "  note: "));
-            out.push_str(&planning_text(report, "  note: "));
-            let findings = words::findings(report);
-            if findings.is_empty() {
-                out.push_str("\nEvery term with df has an exact F test.\n");
-            } else {
-                out.push_str("\nWhat needs attention, and why:\n");
-                for f in &findings {
-                    out.push_str(&format!("  - {f}\n"));
-                }
-            }
-            out
-        }
+        Format::Markdown => write(report, Page::Markdown),
+        Format::Text => write(report, Page::Text(width)),
     }
 }
 
@@ -292,7 +282,7 @@ fn both_rows(b: &BothReport) -> Vec<Vec<String>> {
         .collect()
 }
 
-pub fn render_both(b: &BothReport, format: Format) -> String {
+pub fn render_both(b: &BothReport, format: Format, width: Width) -> String {
     let header = &BOTH_HEADER;
     let rows = || both_rows(b);
     let summary = if b.differ.is_empty() {
@@ -333,11 +323,19 @@ pub fn render_both(b: &BothReport, format: Format) -> String {
             title(&b.restricted),
             markdown_table(header, rows())
         ),
-        Format::Text => format!(
-            "{}: both conventions, {} observations\n\n{}\n{summary}\n",
-            title(&b.restricted),
-            b.restricted.observations,
-            text_table(header, rows())
-        ),
+        Format::Text => {
+            let page = Page::Text(width);
+            format!(
+                "{}\n{}\n{}{}",
+                page.paragraph(&format!(
+                    "{}: both conventions, {} observations",
+                    title(&b.restricted),
+                    b.restricted.observations
+                )),
+                page.table(header, rows()),
+                page.paragraph(LEGEND),
+                page.paragraph(&summary)
+            )
+        }
     }
 }

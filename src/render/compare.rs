@@ -1,7 +1,7 @@
 //! Rendering of `compare` results.
 
 use super::words::CAUTION;
-use super::{Format, csv_table, json, markdown_table, num, text_table};
+use super::{Format, Page, Width, csv_table, json, num};
 use crate::compare::{Comparison, EditNote, SideTest, Status, TermComparison};
 
 /// A note of the comparison in words.
@@ -114,62 +114,116 @@ fn cost_line(c: &Comparison) -> Option<String> {
     ))
 }
 
-pub fn render(c: &Comparison, format: Format) -> String {
+pub fn render(c: &Comparison, format: Format, width: Width) -> String {
     match format {
         Format::Json => json(c),
-        Format::Csv => csv_table(&HEADER, rows(c)),
-        Format::Markdown | Format::Text => {
-            let md = format == Format::Markdown;
-            let mut out = String::new();
-            let title = format!(
-                "{} compared with {}",
-                name(&c.base.name, "base"),
-                if c.changes.is_empty() {
-                    name(&c.other.name, "the other layout")
+        Format::Csv => csv_table(&CSV_HEADER, csv_rows(c)),
+        Format::Markdown => write(c, Page::Markdown),
+        Format::Text => write(c, Page::Text(width)),
+    }
+}
+
+const CSV_HEADER: [&str; 10] = [
+    "term",
+    "base_tested_over",
+    "base_denominator_df",
+    "base_power",
+    "other_tested_over",
+    "other_denominator_df",
+    "other_power",
+    "status",
+    "error_term_changed",
+    "must_test",
+];
+
+/// Tidy rows: one per term, full-precision numbers, empty fields where a value is missing.
+fn csv_rows(c: &Comparison) -> Vec<Vec<String>> {
+    let full = |x: Option<f64>| {
+        x.filter(|v| v.is_finite())
+            .map_or(String::new(), |v| v.to_string())
+    };
+    let side = |t: &Option<SideTest>| -> [String; 3] {
+        match t {
+            None => [String::new(), String::new(), String::new()],
+            Some(t) => [
+                if t.denominator.is_empty() {
+                    String::new()
                 } else {
-                    c.changes.join(", ")
-                }
-            );
-            out.push_str(&if md {
-                format!("## {title}\n\n")
-            } else {
-                format!("{title}\n\n")
-            });
-            out.push_str(&if md {
-                markdown_table(&HEADER, rows(c))
-            } else {
-                text_table(&HEADER, rows(c))
-            });
-            let bullet = if md { "- " } else { "  note: " };
-            out.push('\n');
-            for n in c.notes.iter().map(edit_note) {
-                out.push_str(&format!("{bullet}{n}\n"));
-            }
-            let base_notes = super::words::planning_notes(&c.base.planning_gaps);
-            for n in super::words::planning_notes(&c.other.planning_gaps) {
-                if !base_notes.contains(&n) {
-                    out.push_str(&format!("{bullet}other layout: {n}\n"));
-                }
-            }
-            if let Some(line) = cost_line(c) {
-                out.push_str(&format!("{line}\n"));
-            }
-            out.push_str(&format!("\n{}\n", verdict_text(c)));
-            let findings = super::words::findings(&c.other);
-            if !findings.is_empty() {
-                out.push_str(if md {
-                    "\n### What needs attention in the other layout\n\n"
-                } else {
-                    "\nWhat needs attention in the other layout:\n"
-                });
-                for f in &findings {
-                    out.push_str(&format!("{}{f}\n", if md { "- " } else { "  - " }));
-                }
-            }
-            out.push_str(&format!("\n{CAUTION}\n"));
-            out
+                    over(t)
+                },
+                full(t.denominator_df),
+                full(t.power),
+            ],
+        }
+    };
+    c.terms
+        .iter()
+        .filter(|t| t.label != "residual")
+        .map(|t| {
+            let [bo, bd, bp] = side(&t.base);
+            let [oo, od, op] = side(&t.other);
+            let status = serde_json::to_value(t.status)
+                .ok()
+                .and_then(|v| v.as_str().map(str::to_string))
+                .unwrap_or_default();
+            vec![
+                t.label.clone(),
+                bo,
+                bd,
+                bp,
+                oo,
+                od,
+                op,
+                status,
+                t.error_term_changed.to_string(),
+                t.must_test.to_string(),
+            ]
+        })
+        .collect()
+}
+
+/// The comparison in words, laid out for `page`.
+fn write(c: &Comparison, page: Page) -> String {
+    let mut out = String::new();
+    let title = format!(
+        "{} compared with {}",
+        name(&c.base.name, "base"),
+        if c.changes.is_empty() {
+            name(&c.other.name, "the other layout")
+        } else {
+            c.changes.join(", ")
+        }
+    );
+    out.push_str(&match page {
+        Page::Markdown => format!("## {title}\n\n"),
+        Page::Text(_) => page.paragraph(&title) + "\n",
+    });
+    out.push_str(&page.table(&HEADER, rows(c)));
+    out.push('\n');
+    for n in c.notes.iter().map(edit_note) {
+        out.push_str(&page.item(&n));
+    }
+    let base_notes = super::words::planning_notes(&c.base.planning_gaps);
+    for n in super::words::planning_notes(&c.other.planning_gaps) {
+        if !base_notes.contains(&n) {
+            out.push_str(&page.item(&format!("other layout: {n}")));
         }
     }
+    if let Some(line) = cost_line(c) {
+        out.push_str(&page.paragraph(&line));
+    }
+    out.push('\n');
+    out.push_str(&page.paragraph(&verdict_text(c)));
+    let findings = super::words::findings(&c.other);
+    if !findings.is_empty() {
+        out.push_str(&page.heading("What needs attention in the other layout"));
+        for f in &findings {
+            out.push_str(&page.item(f));
+        }
+    }
+    out.push('\n');
+    out.push_str(&page.paragraph(CAUTION));
+    out
 }
 
 fn name(n: &str, fallback: &str) -> String {

@@ -303,7 +303,10 @@ pub fn markdown(report: &Report, figure_prefix: &str) -> (String, Vec<(String, S
         "\n## Expected mean squares\n\nConvention: the {}.\n",
         convention_note(r.check.convention)
     );
-    m.push_str(&super::check::render(r.check, super::Format::Markdown).replacen("## ", "### ", 1));
+    m.push_str(
+        &super::check::render(r.check, super::Format::Markdown, super::Width::DEFAULT)
+            .replacen("## ", "### ", 1),
+    );
     match r.other_convention {
         None => {
             let _ = writeln!(m, "\n{UNBALANCED_CONVENTION}\n");

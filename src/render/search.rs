@@ -277,10 +277,7 @@ fn write(r: &SearchReport, page: Page) -> String {
     match &r.best {
         Some(b) => {
             out.push_str(&page.heading(&format!("Best layout ({})", b.structure)));
-            out.push_str(&page.paragraph(&format!(
-                "{}.",
-                super::search_words::description(b)
-            )));
+            out.push_str(&page.paragraph(&format!("{}.", super::search_words::description(b))));
             out.push('\n');
             out.push_str(&page.table(&test_header(power), test_rows(b, power)));
             if power && b.tests.iter().any(|t| t.min_detectable.is_some()) {

@@ -1,7 +1,7 @@
 //! Rendering of `simulate` results and of the dummy data set.
 
-use super::words::CAUTION;
 use super::text::{number, probability};
+use super::words::CAUTION;
 use super::{Format, Page, Width, and_list, combination, count, csv_table, json, sentence};
 use crate::errorterm::Verdict;
 use crate::layout::SumsOfSquares;
