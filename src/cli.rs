@@ -11,7 +11,44 @@ use crate::error::{Error, ExitStatus};
 use crate::goal::Goal;
 use crate::layout::{Convention, Layout};
 use crate::planning::{PlanningValues, check_probability};
-use crate::render::{self, Format};
+use crate::render;
+use crate::render::Format;
+
+/// The output format, as the command line spells it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum FormatArg {
+    Text,
+    Json,
+    Markdown,
+    Csv,
+}
+
+impl From<FormatArg> for Format {
+    fn from(f: FormatArg) -> Self {
+        match f {
+            FormatArg::Text => Format::Text,
+            FormatArg::Json => Format::Json,
+            FormatArg::Markdown => Format::Markdown,
+            FormatArg::Csv => Format::Csv,
+        }
+    }
+}
+
+/// How the search looks for the best layout, as the command line spells it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum MethodArg {
+    Enumerate,
+    Optimize,
+}
+
+impl From<MethodArg> for crate::search::Method {
+    fn from(m: MethodArg) -> Self {
+        match m {
+            MethodArg::Enumerate => crate::search::Method::Enumerate,
+            MethodArg::Optimize => crate::search::Method::Optimize,
+        }
+    }
+}
 
 #[derive(Debug, Parser)]
 #[command(
@@ -39,7 +76,7 @@ pub enum Command {
         #[command(flatten)]
         planning: PlanningArgs,
         #[arg(long, value_enum, default_value = "text")]
-        format: Format,
+        format: FormatArg,
     },
     /// Simulate a layout at its planning values: dummy data, and a Monte Carlo check of
     /// the expected mean squares, error rates and power of the planned tests.
@@ -66,7 +103,7 @@ pub enum Command {
         #[arg(long)]
         alpha: Option<f64>,
         #[arg(long, value_enum, default_value = "text")]
-        format: Format,
+        format: FormatArg,
     },
     /// Analyze the data, balanced or not (missing cells, lost observations, NA): the ANOVA
     /// with each term over its planned error term, variance components by the method of
@@ -81,7 +118,7 @@ pub enum Command {
         #[arg(long)]
         response: Option<String>,
         #[arg(long, value_enum, default_value = "text")]
-        format: Format,
+        format: FormatArg,
     },
     /// Search for the cheapest balanced layout whose must-test terms are testable, with
     /// enough denominator df and power, within the budget (a layout file with a [search]
@@ -100,7 +137,7 @@ pub enum Command {
         /// `enumerate` lists every candidate (ranking, frontier, rejections);
         /// `optimize` finds the best of each structure by integer programming.
         #[arg(long, value_enum, default_value = "enumerate")]
-        method: crate::search::Method,
+        method: MethodArg,
         /// Level of every test (overrides `alpha` in the file; default 0.05).
         #[arg(long)]
         alpha: Option<f64>,
@@ -109,7 +146,7 @@ pub enum Command {
         #[arg(long)]
         power: Option<f64>,
         #[arg(long, value_enum, default_value = "text")]
-        format: Format,
+        format: FormatArg,
     },
     /// Compare two layouts side by side: a second file, or the base with changes.
     #[command(after_help = layout_limits())]
@@ -134,7 +171,7 @@ pub enum Command {
         #[command(flatten)]
         planning: PlanningArgs,
         #[arg(long, value_enum, default_value = "text")]
-        format: Format,
+        format: FormatArg,
     },
     /// Write a report that justifies the design: self-contained HTML, or Markdown.
     #[command(after_help = layout_limits())]
@@ -305,7 +342,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 Some(ConventionArg::Both) => Ok(render::check::render_both(
                     &crate::check::check_both(&layout, &plan, &goal)
                         .map_err(|e| e.in_file(&path))?,
-                    format,
+                    format.into(),
                     text_width(),
                 )),
                 other => {
@@ -316,7 +353,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     };
                     Ok(render::check::render(
                         &check_with_goal(&layout, c, &plan, &goal)?,
-                        format,
+                        format.into(),
                         text_width(),
                     ))
                 }
@@ -366,7 +403,11 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     }
                 })?;
             }
-            Ok(render::simulate::render(&report, format, text_width()))
+            Ok(render::simulate::render(
+                &report,
+                format.into(),
+                text_width(),
+            ))
         }
         Command::Analyze {
             layout: layout_path,
@@ -380,9 +421,17 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
 
-            let observations = crate::analyze::read_data(&data, &layout, response.as_deref())?;
+            let size = std::fs::metadata(&data).map_or(0, |m| m.len());
+            let bar = Bar::new(size, "bytes read");
+            let observations =
+                crate::analyze::read_data_with(&data, &layout, response.as_deref(), &bar)?;
+            bar.finish();
             let report = crate::analyze::analyze(&layout, &observations, plan.alpha)?;
-            Ok(render::analyze::render(&report, format, text_width()))
+            Ok(render::analyze::render(
+                &report,
+                format.into(),
+                text_width(),
+            ))
         }
         Command::Search {
             problem,
@@ -414,7 +463,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             let options = Options {
                 top,
                 max_candidates,
-                method,
+                method: method.into(),
                 ..Options::default()
             };
             let bar = Bar::new(space.min(u64::MAX as u128) as u64, "candidates");
@@ -422,7 +471,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 .run(&options, &bar)
                 .map_err(|e| e.in_file(&problem))?;
             bar.finish();
-            Ok(render::search::render(&report, format, text_width()))
+            Ok(render::search::render(&report, format.into(), text_width()))
         }
         Command::Compare {
             base,
@@ -472,7 +521,11 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 notes,
                 convention.map(Convention::from),
             )?;
-            Ok(render::compare::render(&comparison, format, text_width()))
+            Ok(render::compare::render(
+                &comparison,
+                format.into(),
+                text_width(),
+            ))
         }
         Command::Report {
             layout,

@@ -41,7 +41,7 @@ use serde::Serialize;
 mod read;
 mod unbalanced;
 
-pub use read::{Observations, parse_data, read_data};
+pub use read::{Observations, parse_data, parse_data_with, read_data, read_data_with};
 
 use crate::balanced::{Balanced, cell_summaries, index_in};
 use crate::dist;

@@ -55,12 +55,22 @@ pub fn read_data(
     layout: &Layout,
     response: Option<&str>,
 ) -> Result<Observations, Error> {
+    read_data_with(path, layout, response, &crate::progress::Quiet)
+}
+
+/// `read_data`, telling `progress` how many bytes of the file are read.
+pub fn read_data_with(
+    path: &Path,
+    layout: &Layout,
+    response: Option<&str>,
+    progress: &dyn crate::progress::Progress,
+) -> Result<Observations, Error> {
     let name = path.display().to_string();
     let bytes = std::fs::read(path).map_err(|source| Error::Io {
         path: name.clone(),
         source,
     })?;
-    parse_data(&name, &bytes, layout, response)
+    parse_data_with(&name, &bytes, layout, response, progress)
 }
 
 /// Parses CSV bytes (see `read_data`); `name` is the file name for messages.
@@ -69,6 +79,20 @@ pub fn parse_data(
     bytes: &[u8],
     layout: &Layout,
     response: Option<&str>,
+) -> Result<Observations, Error> {
+    parse_data_with(name, bytes, layout, response, &crate::progress::Quiet)
+}
+
+/// Rows between two progress reports.
+const ROWS_PER_REPORT: usize = 1 << 16;
+
+/// `parse_data`, telling `progress` how many bytes are read.
+pub fn parse_data_with(
+    name: &str,
+    bytes: &[u8],
+    layout: &Layout,
+    response: Option<&str>,
+    progress: &dyn crate::progress::Progress,
 ) -> Result<Observations, Error> {
     let fail = |line: Option<usize>, message: String| Error::Data {
         path: name.to_string(),
@@ -200,11 +224,18 @@ pub fn parse_data(
     let mut missing_lines: Vec<usize> = Vec::new();
     let mut record = csv::StringRecord::new();
     let (mut counted_to, mut counted_line) = (0usize, 1usize);
+    let (mut read_rows, mut reported) = (0usize, 0u64);
     loop {
         match reader.read_record(&mut record) {
             Ok(true) => {}
             Ok(false) => break,
             Err(e) => return Err(csv_error(name, &e)),
+        }
+        read_rows += 1;
+        if read_rows % ROWS_PER_REPORT == 0 {
+            let at = reader.position().byte();
+            progress.advance(at.saturating_sub(reported));
+            reported = at;
         }
         // Lines counted from the bytes: the reader's own count drifts on CRLF files.
         let line = match record.position() {

@@ -16,7 +16,7 @@ pub mod words;
 
 pub use text::Width;
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Format {
     Text,
     Json,

@@ -26,7 +26,7 @@ pub use problem::{DEFAULT_MAX_CANDIDATES, Problem};
 pub use report::SearchReport;
 
 /// How the search looks for the best layout.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize, clap::ValueEnum)]
+#[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
 #[serde(rename_all = "lowercase")]
 pub enum Method {
     /// Pruned enumeration of every candidate: the best, the ranking, the frontier and
