@@ -380,6 +380,9 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                     "--mean {mean} is not a finite number"
                 )));
             }
+            if let Some(out) = &data {
+                refuse_overwriting(out, &[&layout_path], "--data")?;
+            }
             let args = PlanningArgs { alpha, power: None };
             let Side { layout, plan, .. } = load_side(&layout_path, &args)?;
             let request = crate::simulate::Request {
@@ -396,12 +399,7 @@ pub fn run(cli: Cli) -> Result<String, Error> {
                 .map_err(|e| e.in_file(&layout_path))?;
             bar.finish();
             if let (Some(path), Some(set)) = (&data, &set) {
-                std::fs::write(path, render::simulate::data_csv(set)).map_err(|source| {
-                    Error::Write {
-                        path: path.display().to_string(),
-                        source,
-                    }
-                })?;
+                write_file(path, &render::simulate::data_csv(set))?;
             }
             Ok(render::simulate::render(
                 &report,
@@ -535,6 +533,9 @@ pub fn run(cli: Cli) -> Result<String, Error> {
             seed,
             planning,
         } => {
+            if let Some(out) = &output {
+                refuse_overwriting(out, &[&layout], "-o")?;
+            }
             let (base, spec, text) = Layout::from_file(&layout)?;
             print_notes(&spec);
             let in_file = |e: Error| e.in_file(&layout);
@@ -618,12 +619,7 @@ fn write_report(
     output: Option<&std::path::Path>,
     markdown: bool,
 ) -> Result<String, Error> {
-    let write = |path: &std::path::Path, text: &str| {
-        std::fs::write(path, text).map_err(|source| Error::Write {
-            path: path.display().to_string(),
-            source,
-        })
-    };
+    let write = write_file;
     match (output, markdown) {
         (None, false) => Ok(render::report::html(report)),
         (None, true) => {
@@ -645,6 +641,7 @@ fn write_report(
             let (text, figures) = render::report::markdown(report, &format!("{stem}-"));
             write(path, &text)?;
             let dir = path.parent().unwrap_or_else(|| std::path::Path::new(""));
+            remove_old_figures(dir, &stem, &figures)?;
             for (name, svg) in figures {
                 write(&dir.join(name), &svg)?;
             }
@@ -652,6 +649,109 @@ fn write_report(
             Ok(String::new())
         }
     }
+}
+
+/// Writes a file whole or not at all: into a temporary file in the same folder, renamed
+/// over the target once complete, so a run killed while writing leaves the old file (or
+/// none) under the real name, never half of the new one.
+fn write_file(path: &std::path::Path, text: &str) -> Result<(), Error> {
+    use std::io::Write;
+    let failed = |source: std::io::Error| Error::Write {
+        path: path.display().to_string(),
+        source,
+    };
+    let dir = match path.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d,
+        _ => std::path::Path::new("."),
+    };
+    let mut file = tempfile::NamedTempFile::new_in(dir).map_err(failed)?;
+    file.write_all(text.as_bytes())
+        .and_then(|()| file.as_file().sync_all())
+        .map_err(failed)?;
+    file.persist(path).map_err(|e| failed(e.error))?;
+    Ok(())
+}
+
+/// Refuses an output path that is the same file as one of the inputs: compared by the
+/// file itself (device and inode where the system has them, else the canonical path),
+/// so `./a.toml`, `a.toml` and a link to it are all the same file.
+fn refuse_overwriting(
+    output: &std::path::Path,
+    inputs: &[&std::path::Path],
+    option: &str,
+) -> Result<(), Error> {
+    let Ok(out) = std::fs::metadata(output) else {
+        return Ok(());
+    };
+    for input in inputs {
+        let Ok(inp) = std::fs::metadata(input) else {
+            continue;
+        };
+        if same_file(&out, &inp, output, input) {
+            return Err(Error::Usage(format!(
+                "{option} {}: that is the input file {}; write the output under another name",
+                output.display(),
+                input.display()
+            )));
+        }
+    }
+    Ok(())
+}
+
+#[cfg(unix)]
+fn same_file(
+    a: &std::fs::Metadata,
+    b: &std::fs::Metadata,
+    _: &std::path::Path,
+    _: &std::path::Path,
+) -> bool {
+    use std::os::unix::fs::MetadataExt;
+    a.dev() == b.dev() && a.ino() == b.ino()
+}
+
+#[cfg(not(unix))]
+fn same_file(
+    _: &std::fs::Metadata,
+    _: &std::fs::Metadata,
+    a: &std::path::Path,
+    b: &std::path::Path,
+) -> bool {
+    matches!((std::fs::canonicalize(a), std::fs::canonicalize(b)), (Ok(x), Ok(y)) if x == y)
+}
+
+/// Removes the figures an earlier Markdown report of the same name left that this one
+/// does not write again (`STEM-layout.svg`, `STEM-power-N.svg`), so no stale figure
+/// stays beside the new report.
+fn remove_old_figures(
+    dir: &std::path::Path,
+    stem: &str,
+    figures: &[(String, String)],
+) -> Result<(), Error> {
+    let dir = if dir.as_os_str().is_empty() {
+        std::path::Path::new(".")
+    } else {
+        dir
+    };
+    let Ok(entries) = std::fs::read_dir(dir) else {
+        return Ok(());
+    };
+    let power = format!("{stem}-power-");
+    for entry in entries.flatten() {
+        let name = entry.file_name();
+        let Some(name) = name.to_str() else { continue };
+        let ours = name == format!("{stem}-layout.svg")
+            || name
+                .strip_prefix(&power)
+                .and_then(|rest| rest.strip_suffix(".svg"))
+                .is_some_and(|n| !n.is_empty() && n.bytes().all(|b| b.is_ascii_digit()));
+        if ours && !figures.iter().any(|(f, _)| f == name) {
+            std::fs::remove_file(entry.path()).map_err(|source| Error::Write {
+                path: entry.path().display().to_string(),
+                source,
+            })?;
+        }
+    }
+    Ok(())
 }
 
 /// A progress bar on stderr, shown only when stderr is a terminal and the search has
