@@ -8,7 +8,7 @@ use crate::findings::{BothReport, CheckReport, TermReport, TestReport};
 fn den_df(test: &TestReport) -> String {
     match test.denominator_df {
         Some(df) => num(df),
-        None if test.verdict == Verdict::QuasiF => "needs priors".into(),
+        None if test.verdict == Verdict::QuasiF => "needs [sd]".into(),
         None => "-".into(),
     }
 }

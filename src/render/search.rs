@@ -41,7 +41,7 @@ fn levels(c: &CandidateReport) -> String {
     parts.join(", ")
 }
 
-/// Whether any candidate shown has a power (there is none without a [prior] table).
+/// Whether any candidate shown has a power (there is none without an [sd] table).
 fn has_power(r: &SearchReport) -> bool {
     r.candidates
         .iter()
@@ -248,7 +248,7 @@ fn rejection_text(x: &RejectionReport, c: &Constraints) -> String {
             per_term(cheapest, |t| match (t.denominator_df, t.verdict) {
                 (Some(d), _) => number(d),
                 (None, Verdict::QuasiF) => {
-                    "unknown (a quasi-F, whose Satterthwaite df need a [prior] table)".into()
+                    "unknown (a quasi-F, whose Satterthwaite df need an [sd] table)".into()
                 }
                 (None, _) => "none".into(),
             })
