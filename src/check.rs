@@ -47,7 +47,7 @@ pub fn check_with_goal(
     goal: &Goal,
 ) -> Result<CheckReport, Error> {
     let mut layout = layout.clone();
-    if convention == Convention::Restricted && !layout.removed.is_empty() {
+    if !layout.defines(convention) {
         return Err(Error::invalid(None, crate::layout::RESTRICTED_UNBALANCED));
     }
     layout.structure.convention = convention;

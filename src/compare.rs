@@ -465,7 +465,9 @@ pub fn compare(
     let mut notes = notes;
     // An unbalanced side is computed under the unrestricted model; so is the other, so
     // that the two differ only in the changes.
-    let unbalanced = !base.layout.removed.is_empty() || !other.layout.removed.is_empty();
+    let unbalanced = [base, other]
+        .iter()
+        .any(|x| !x.layout.defines(Convention::Restricted));
     let convention = if unbalanced {
         if convention == Some(Convention::Restricted) {
             return Err(Error::Usage(format!(
@@ -559,6 +561,11 @@ pub fn compare(
     })
 }
 
+/// The side's test, when it has one.
+fn tested(t: &Option<SideTest>) -> Option<&SideTest> {
+    t.as_ref().filter(|_| testable(t))
+}
+
 pub fn testable(t: &Option<SideTest>) -> bool {
     t.as_ref()
         .and_then(|x| x.verdict)
@@ -575,15 +582,11 @@ fn judge(
         (Some(b), Some(o)) => !same_denominator(&b.denominator, &o.denominator),
         _ => true,
     };
-    let status = match (testable(&base), testable(&other)) {
-        (true, false) => Status::Lost,
-        (false, true) => Status::Gained,
-        (false, false) => Status::Same,
-        (true, true) => {
-            let (b, o) = (
-                base.as_ref().unwrap_or_else(|| unreachable!()),
-                other.as_ref().unwrap_or_else(|| unreachable!()),
-            );
+    let status = match (tested(&base), tested(&other)) {
+        (Some(_), None) => Status::Lost,
+        (None, Some(_)) => Status::Gained,
+        (None, None) => Status::Same,
+        (Some(b), Some(o)) => {
             let by = |x: Option<f64>, y: Option<f64>| -> Option<std::cmp::Ordering> {
                 match (x, y) {
                     (Some(x), Some(y)) if (x - y).abs() > 1e-9 * x.abs().max(1.0) => {

@@ -422,18 +422,9 @@ pub fn priced_total(overhead: f64, lines: impl IntoIterator<Item = (f64, u64)>) 
 }
 
 impl CostModel {
-    /// `priced_total` with the units bought of each priced term (`units` of its live set;
-    /// of `REPLICATE` for each observation).
-    pub fn total(&self, mut units: impl FnMut(Mask) -> u64) -> f64 {
-        priced_total(
-            self.overhead,
-            self.per_unit
-                .iter()
-                .map(|&(live, price)| (price, units(live))),
-        )
-    }
-
-    /// `total` with the breakdown by term.
+    /// What a layout costs, with the breakdown by term: `priced_total` over the units
+    /// bought of each priced term (`units` of its live set; of `REPLICATE` for each
+    /// observation).
     pub fn cost(&self, structure: &Structure, mut units: impl FnMut(Mask) -> u64) -> Cost {
         let breakdown: Vec<CostLine> = self
             .per_unit

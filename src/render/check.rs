@@ -35,12 +35,8 @@ const PLAN_HEADER: [&str; 9] = [
     "min. effect",
 ];
 
-fn planned(report: &CheckReport) -> bool {
-    report.planned()
-}
-
 fn header(report: &CheckReport) -> &'static [&'static str] {
-    if planned(report) {
+    if report.planned() {
         &PLAN_HEADER
     } else {
         &HEADER
@@ -52,7 +48,7 @@ fn opt(x: Option<f64>) -> String {
 }
 
 fn rows(report: &CheckReport) -> Vec<Vec<String>> {
-    let with_plan = planned(report);
+    let with_plan = report.planned();
     report
         .terms
         .iter()
@@ -192,7 +188,7 @@ fn write(report: &CheckReport, page: Page) -> String {
             out.push_str(&page.item(&n));
         }
     }
-    if planned(report) {
+    if report.planned() {
         out.push('\n');
         out.push_str(&page.paragraph(&format!(
             "Power at alpha = {}. min. effect: the smallest effect found with power {} (fixed terms: root mean square of effects; random terms: standard deviation), in the response's units.",
@@ -206,7 +202,7 @@ fn write(report: &CheckReport, page: Page) -> String {
         out.push('\n');
         out.push_str(&page.paragraph(&c));
     }
-    if planned(report) {
+    if report.planned() {
         out.push('\n');
         out.push_str(&page.paragraph(CAUTION));
     }

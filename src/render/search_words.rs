@@ -56,7 +56,7 @@ pub fn must_test_reason(t: &MustTestReport) -> String {
         return "only a quasi-F test exists, and exact_only asks for an exact F test".into();
     }
     match &t.reason {
-        Some(r) => words::reason_of(r, t.verdict, &t.denominator),
+        Some(r) => words::reason_of(r, &t.denominator),
         None => "it has no error term".into(),
     }
 }

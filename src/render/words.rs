@@ -10,7 +10,7 @@ use crate::findings::{
 };
 use crate::layout::{Kind, SumsOfSquares};
 
-use super::num;
+use super::{and_list, num};
 
 /// The caution that goes wherever users decide on power.
 pub const CAUTION: &str = "Power and minimum detectable effects rest on the planning values, which are guesses: they are only as good as those guesses. Have a statistician review designs that carry real cost or risk.";
@@ -153,15 +153,6 @@ pub fn tested_over(test: &TestReport) -> String {
     }
 }
 
-fn and_list(names: &[String]) -> String {
-    match names {
-        [] => String::new(),
-        [one] => one.clone(),
-        [a, b] => format!("{a} and {b}"),
-        [rest @ .., last] => format!("{}, and {last}", rest.join(", ")),
-    }
-}
-
 fn one_level(names: &[String]) -> String {
     match names.len() {
         0 => "no factor has".into(),
@@ -177,7 +168,7 @@ pub fn reason(term: &TermReport, test: &TestReport) -> Option<String> {
 }
 
 /// A reason in words, for a term whose kind may not be known.
-pub fn reason_of(r: &Reason, _verdict: Verdict, denominator_parts: &[DenominatorPart]) -> String {
+pub fn reason_of(r: &Reason, denominator_parts: &[DenominatorPart]) -> String {
     reason_words(r, None, denominator_parts)
 }
 
