@@ -58,6 +58,8 @@ pub struct Balanced {
     terms: Vec<Vec<(usize, f64)>>,
     /// The same for the interactions assumed absent, which pool into the residual.
     omitted: Vec<Vec<(usize, f64)>>,
+    /// The term each omitted term's sum of squares joins.
+    pooled_into: Vec<usize>,
     df: Vec<u64>,
     largest_margin: usize,
 }
@@ -162,6 +164,7 @@ impl Balanced {
             margins,
             terms,
             omitted,
+            pooled_into: model.pooled_into.clone(),
             df: model.df(levels),
             largest_margin,
         })
@@ -243,12 +246,10 @@ impl Balanced {
         for (t, parts) in self.terms.iter().enumerate().take(residual) {
             out[t] = combine(parts, &scratch.q);
         }
-        out[residual] = within
-            + self
-                .omitted
-                .iter()
-                .map(|parts| combine(parts, &scratch.q))
-                .sum::<f64>();
+        out[residual] = within;
+        for (parts, &t) in self.omitted.iter().zip(&self.pooled_into) {
+            out[t] += combine(parts, &scratch.q);
+        }
     }
 
     /// Mean squares from sums of squares (NaN for a term with 0 df).

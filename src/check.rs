@@ -8,7 +8,8 @@ use crate::errorterm::{Verdict, weight_text};
 pub use crate::findings::{BothReport, CheckReport, TermReport, TestReport};
 use crate::findings::{
     Carried, ChangeReport, Component, DenominatorPart, EmptyCells, Gap, Isolated, PlanningGaps,
-    Reason, RepairReport, Shortfall, Summary, Unit, Warning,
+    Pooled, PseudoCause, Pseudoreplication, Reason, RepairReport, Shortfall, Strata, Stratum,
+    Summary, Unit, Warning,
 };
 use crate::goal::Goal;
 use crate::layout::{Convention, Kind, Layout, SumsOfSquares};
@@ -123,6 +124,16 @@ pub fn report_of(a: &Analysis, plan: &PlanningValues, goal: &Goal) -> CheckRepor
                 id: t.live,
                 label: t.label(s),
                 short_label: t.short_label(s),
+                of_interest: !t.is_residual() && goal.covers(t.live),
+                same_as: s
+                    .units
+                    .alias(t.live)
+                    .filter(|_| !t.is_residual())
+                    .map(|_| t.interaction_label(s)),
+                stratum: s
+                    .units
+                    .stratum(t.subscripts())
+                    .map(|u| s.units.list[u].name.clone()),
                 live: t.live_names(s).iter().map(|n| n.to_string()).collect(),
                 within: t.nest_names(s).iter().map(|n| n.to_string()).collect(),
                 residual: t.is_residual(),
@@ -144,8 +155,151 @@ pub fn report_of(a: &Analysis, plan: &PlanningValues, goal: &Goal) -> CheckRepor
         terms,
         warnings: warnings(a),
         unbalanced: summary(a),
+        strata: strata(a, goal),
     }
 }
+
+/// The strata of a layout of units: each unit, its df and what is estimated in it, what
+/// additivity pools, and the treatment terms tested over smaller units than their own.
+fn strata(a: &Analysis, goal: &Goal) -> Option<Strata> {
+    let layout = &a.layout;
+    let s = &layout.structure;
+    let units = &s.units;
+    if !units.declared() {
+        return None;
+    }
+    let model = &a.model;
+    let lv = &layout.levels;
+    let names = |list: &[usize]| -> Vec<String> {
+        list.iter().map(|&u| units.list[u].name.clone()).collect()
+    };
+    let factor_names = |m: Mask| -> Vec<String> {
+        s.factors
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| m & (1 << i) != 0)
+            .map(|(_, f)| f.name.clone())
+            .collect()
+    };
+    // Largest units first: by how many factors pick out one unit.
+    let mut order: Vec<usize> = (0..units.list.len()).collect();
+    order.sort_by_key(|&u| (units.list[u].ident.count_ones(), u));
+    let stratum_of = |t: usize| units.stratum(model.terms[t].subscripts());
+    let list = order
+        .iter()
+        .map(|&u| {
+            let unit = &units.list[u];
+            let in_it: Vec<usize> = (0..model.terms.len())
+                .filter(|&t| stratum_of(t) == Some(u))
+                .collect();
+            let own = model.terms.iter().position(|t| t.live == unit.live());
+            let mut terms: Vec<String> = Vec::new();
+            if let Some(o) = own {
+                terms.push(model.terms[o].label(s));
+            }
+            for &t in &in_it {
+                if Some(t) != own {
+                    terms.push(model.terms[t].label(s));
+                }
+            }
+            let below_carries = units
+                .list
+                .iter()
+                .any(|v| v.ident & unit.ident == unit.ident && v.ident != unit.ident && v.carries != 0);
+            Stratum {
+                unit: unit.name.clone(),
+                count: units.count(u, &lv.per_factor, lv.replicates),
+                within: names(&unit.within),
+                total: units.total(u, &lv.per_factor, lv.replicates),
+                carries: factor_names(unit.carries),
+                term: own.map_or_else(
+                    || crate::layout::term_of(s, unit.live()).interaction_label(s),
+                    |o| model.terms[o].label(s),
+                ),
+                same_as: match unit.place {
+                    crate::layout::Place::Term(live) => {
+                        Some(crate::layout::term_of(s, live).interaction_label(s))
+                    }
+                    _ => None,
+                },
+                smallest: unit.place == crate::layout::Place::Residual,
+                subsample: unit.carries == 0 && !below_carries && {
+                    // Below a unit that carries a treatment.
+                    units.list.iter().any(|v| {
+                        v.carries != 0 && unit.ident & v.ident == v.ident && v.ident != unit.ident
+                    })
+                },
+                df: in_it.iter().map(|&t| a.df[t]).sum(),
+                terms,
+            }
+        })
+        .collect();
+    let pooled = model
+        .omitted
+        .iter()
+        .zip(&model.pooled_into)
+        .filter(|(o, _)| units.pooled.contains(&o.live))
+        .map(|(o, &t)| Pooled {
+            term: o.label(s),
+            into: model.terms[t].label(s),
+        })
+        .collect();
+    let mut pseudo = Vec::new();
+    for (t, term) in model.terms.iter().enumerate() {
+        if term.is_residual() || !units.is_treatment_term(term.subscripts()) {
+            continue;
+        }
+        if !goal.covers(term.live) {
+            continue;
+        }
+        let Some(u) = stratum_of(t) else { continue };
+        let unit = &units.list[u];
+        let tested_over: Vec<String> = a.tests[t]
+            .as_ref()
+            .map(|e| {
+                e.denominator
+                    .iter()
+                    .map(|&(v, _)| model.terms[v].label(s))
+                    .collect()
+            })
+            .unwrap_or_default();
+        let own = model.terms.iter().position(|x| x.live == unit.live());
+        let cause = match own {
+            None if unit.place != crate::layout::Place::Residual => {
+                let unit_term = crate::layout::term_of(s, unit.live()).interaction_label(s);
+                if s.units.merged == Some(unit.live()) {
+                    continue;
+                }
+                Some(PseudoCause::UnitOmitted { unit_term })
+            }
+            Some(o) if model.kinds[o] == Kind::Fixed => {
+                let count = units.count(u, &lv.per_factor, lv.replicates);
+                Some(PseudoCause::OneUnitPerLevel {
+                    count,
+                    within: names(&unit.within),
+                    fix_count: count * 2,
+                })
+            }
+            _ => None,
+        };
+        if let Some(cause) = cause {
+            pseudo.push(Pseudoreplication {
+                id: term.live,
+                term: term.label(s),
+                unit: unit.name.clone(),
+                cause,
+                tested_over,
+            });
+        }
+    }
+    Some(Strata {
+        strata: list,
+        additive: units.additive,
+        pooled,
+        pseudoreplication: pseudo,
+    })
+}
+
 
 /// What the planning values leave out.
 pub(crate) fn planning_gaps(a: &Analysis, plan: &PlanningValues) -> PlanningGaps {

@@ -21,7 +21,7 @@
 //! level counts. The design search depends on that split.
 
 use num_rational::Ratio;
-use num_traits::{CheckedMul, One, Zero};
+use num_traits::{CheckedAdd, CheckedMul, One, Zero};
 
 use crate::layout::{Convention, Kind, Levels, Structure};
 use crate::term::{Mask, REPLICATE, Term, model_terms};
@@ -45,8 +45,14 @@ pub struct Model {
     pub structure: Structure,
     pub terms: Vec<Term>,
     pub kinds: Vec<Kind>,
-    /// Terms assumed absent, whose df pool into the residual.
+    /// Terms assumed absent. Each one's sum of squares and df join the smallest remaining
+    /// random term that contains it (the next stratum up), or the residual.
     pub omitted: Vec<Term>,
+    /// For each omitted term, the index of the term it is pooled into.
+    pub pooled_into: Vec<usize>,
+    /// For each omitted term, its symbolic E(MS) without its own component: what its
+    /// mean square would estimate, pooled into its target's.
+    pub omitted_rows: Vec<Vec<SymbolicEntry>>,
     pub rows: Vec<Vec<SymbolicEntry>>,
 }
 
@@ -65,7 +71,7 @@ impl Model {
     pub fn new(structure: &Structure) -> Model {
         let mut terms = model_terms(structure);
         terms.push(Term::residual(structure));
-        let omitted = structure
+        let omitted: Vec<Term> = structure
             .omitted
             .iter()
             .map(|&live| crate::layout::term_of(structure, live))
@@ -85,53 +91,75 @@ impl Model {
             .fold(0, |m, (i, _)| m | (1 << i));
         let all_subscripts = structure.all_factors() | REPLICATE;
 
-        let rows = terms
-            .iter()
-            .map(|t| {
-                let mut row = Vec::new();
-                for (u_index, u) in terms.iter().enumerate() {
-                    if t.subscripts() & !u.subscripts() != 0 {
-                        continue;
-                    }
-                    let uncovered_live = u.live & !t.live;
-                    let fixed_uncovered = uncovered_live & fixed_mask;
-                    let constrained = match structure.convention {
-                        Convention::Restricted => fixed_uncovered != 0,
-                        Convention::Unrestricted => {
-                            kinds[u_index] == Kind::Fixed && fixed_uncovered != 0
-                        }
-                    };
-                    if constrained {
-                        continue;
-                    }
-                    row.push(SymbolicEntry {
-                        component: u_index,
-                        multiply: all_subscripts & !u.subscripts(),
-                        finite: uncovered_live & finite_mask,
-                    });
+        // A unit's variation is the unit's, not an interaction: a plot effect does not sum
+        // to zero over the treatments randomised to plots, so a unit term follows the
+        // unrestricted rule under either convention (the randomisation model of Nelder
+        // 1965, Proc. Royal Society A 283:147-178).
+        let row_of = |t: &Term| -> Vec<SymbolicEntry> {
+            let mut row = Vec::new();
+            for (u_index, u) in terms.iter().enumerate() {
+                if t.subscripts() & !u.subscripts() != 0 {
+                    continue;
                 }
-                row
-            })
+                let uncovered_live = u.live & !t.live;
+                let fixed_uncovered = uncovered_live & fixed_mask;
+                let restricted = structure.convention == Convention::Restricted
+                    && !structure.units.is_unit_term(u.live);
+                let constrained = if restricted {
+                    fixed_uncovered != 0
+                } else {
+                    kinds[u_index] == Kind::Fixed && fixed_uncovered != 0
+                };
+                if constrained {
+                    continue;
+                }
+                row.push(SymbolicEntry {
+                    component: u_index,
+                    multiply: all_subscripts & !u.subscripts(),
+                    finite: uncovered_live & finite_mask,
+                });
+            }
+            row
+        };
+        let rows = terms.iter().map(row_of).collect();
+        let omitted_rows = omitted.iter().map(row_of).collect();
+        let pooled_into = omitted
+            .iter()
+            .map(|o| pool_target(&terms, &kinds, o))
             .collect();
         Model {
             structure: structure.clone(),
             terms,
             kinds,
             omitted,
+            pooled_into,
+            omitted_rows,
             rows,
         }
+    }
+
+    /// Indices of the omitted terms pooled into term `t`.
+    pub fn pooled(&self, t: usize) -> impl Iterator<Item = usize> + '_ {
+        (0..self.omitted.len()).filter(move |&o| self.pooled_into[o] == t)
+    }
+
+    /// Whether some omitted term is pooled into a term other than the residual.
+    pub fn pools_above_residual(&self) -> bool {
+        self.pooled_into.iter().any(|&t| t != self.residual())
     }
 
     pub fn residual(&self) -> usize {
         self.terms.len() - 1
     }
 
-    /// Degrees of freedom of every term; the residual gets cells × (replicates - 1)
-    /// plus the df of the omitted interactions.
+    /// Degrees of freedom of every term; the residual gets cells × (replicates - 1), and
+    /// each term the df of the omitted interactions pooled into it.
     pub fn df(&self, levels: &Levels) -> Vec<u64> {
         let mut df: Vec<u64> = self.terms.iter().map(|t| t.df(levels)).collect();
-        let pooled: u64 = self.omitted.iter().map(|t| t.df(levels)).sum();
-        df[self.residual()] = levels.cells() * (levels.replicates - 1) + pooled;
+        df[self.residual()] = levels.cells() * (levels.replicates - 1);
+        for (o, &t) in self.omitted.iter().zip(&self.pooled_into) {
+            df[t] += o.df(levels);
+        }
         df
     }
 
@@ -145,33 +173,82 @@ impl Model {
                 levels.per_factor[j as usize] as i128
             }
         };
-        let rows = self
+        let numeric = |row: &[SymbolicEntry]| -> Result<Vec<(usize, Rational)>, Overflow> {
+            let mut out = Vec::with_capacity(row.len());
+            for e in row {
+                let mut c = Rational::one();
+                for j in bits(e.multiply) {
+                    c = c
+                        .checked_mul(&Rational::from_integer(count(j)))
+                        .ok_or(Overflow)?;
+                }
+                for j in bits(e.finite) {
+                    let n = count(j);
+                    let big_n = self.structure.factors[j as usize].population.unwrap_or(0) as i128;
+                    let f = Rational::new(big_n - n, big_n);
+                    c = c.checked_mul(&f).ok_or(Overflow)?;
+                }
+                if !c.is_zero() {
+                    out.push((e.component, c));
+                }
+            }
+            Ok(out)
+        };
+        let mut rows = self
             .rows
             .iter()
-            .map(|row| {
-                let mut out = Vec::with_capacity(row.len());
-                for e in row {
-                    let mut c = Rational::one();
-                    for j in bits(e.multiply) {
-                        c = c
-                            .checked_mul(&Rational::from_integer(count(j)))
-                            .ok_or(Overflow)?;
-                    }
-                    for j in bits(e.finite) {
-                        let n = count(j);
-                        let big_n =
-                            self.structure.factors[j as usize].population.unwrap_or(0) as i128;
-                        let f = Rational::new(big_n - n, big_n);
-                        c = c.checked_mul(&f).ok_or(Overflow)?;
-                    }
-                    if !c.is_zero() {
-                        out.push((e.component, c));
-                    }
-                }
-                Ok(out)
-            })
+            .map(|row| numeric(row))
             .collect::<Result<Vec<_>, Overflow>>()?;
+        if !self.omitted.is_empty() {
+            // A pooled mean square (SS_T + Σ SS_O) / (df_T + Σ df_O) has the df-weighted
+            // mean of the expectations: (df_T E(MS_T) + Σ df_O E(MS_O)) / (df_T + Σ df_O).
+            let df = self.df(levels);
+            for t in 0..self.terms.len() {
+                let pooled: Vec<usize> = self.pooled(t).collect();
+                if pooled.is_empty() || t == self.residual() && self.pooled_rows_are_sigma(t) {
+                    continue;
+                }
+                let own = if t == self.residual() {
+                    levels.cells() * (levels.replicates - 1)
+                } else {
+                    self.terms[t].df(levels)
+                };
+                let total = Rational::from_integer(df[t] as i128);
+                if total.is_zero() {
+                    continue;
+                }
+                let mut sum: Vec<(usize, Rational)> = Vec::new();
+                let mut add = |row: &[(usize, Rational)], weight: u64| -> Result<(), Overflow> {
+                    let w = Rational::from_integer(weight as i128) / total;
+                    for &(c, v) in row {
+                        let x = v.checked_mul(&w).ok_or(Overflow)?;
+                        match sum.iter_mut().find(|(k, _)| *k == c) {
+                            Some((_, acc)) => *acc = acc.checked_add(&x).ok_or(Overflow)?,
+                            None => sum.push((c, x)),
+                        }
+                    }
+                    Ok(())
+                };
+                add(&rows[t], own)?;
+                for o in pooled {
+                    add(&numeric(&self.omitted_rows[o])?, self.omitted[o].df(levels))?;
+                }
+                sum.sort_by_key(|(c, _)| *c);
+                sum.retain(|(_, v)| !v.is_zero());
+                rows[t] = sum;
+            }
+        }
         Ok(Ems { rows })
+    }
+
+    /// Whether every term pooled into `t` estimates σ² alone, as the residual does.
+    fn pooled_rows_are_sigma(&self, t: usize) -> bool {
+        let residual = self.residual();
+        self.pooled(t).all(|o| {
+            self.omitted_rows[o]
+                .iter()
+                .all(|e| e.component == residual)
+        })
     }
 }
 
@@ -183,6 +260,39 @@ impl Ems {
             .find(|(c, _)| *c == component)
             .map(|(_, v)| *v)
             .unwrap_or_else(Rational::zero)
+    }
+}
+
+/// The term an omitted term is pooled into: the smallest remaining random term whose
+/// subscripts include its own (the next stratum up). When several are smallest, the
+/// smallest term containing all of them; the residual contains every term.
+fn pool_target(terms: &[Term], kinds: &[Kind], omitted: &Term) -> usize {
+    let residual = terms.len() - 1;
+    let containing: Vec<usize> = (0..residual)
+        .filter(|&u| {
+            kinds[u] == Kind::Random && omitted.subscripts() & !terms[u].subscripts() == 0
+        })
+        .collect();
+    let below = |a: usize, b: usize| {
+        a != b && terms[b].subscripts() & !terms[a].subscripts() == 0
+    };
+    let smallest: Vec<usize> = containing
+        .iter()
+        .copied()
+        .filter(|&u| !containing.iter().any(|&v| below(u, v)))
+        .collect();
+    match smallest.as_slice() {
+        [] => residual,
+        [one] => *one,
+        many => {
+            let all = many.iter().fold(0, |m, &u| m | terms[u].subscripts());
+            containing
+                .iter()
+                .copied()
+                .filter(|&u| all & !terms[u].subscripts() == 0)
+                .min_by_key(|&u| terms[u].subscripts().count_ones())
+                .unwrap_or(residual)
+        }
     }
 }
 

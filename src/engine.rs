@@ -191,6 +191,23 @@ impl Analysis {
 
     fn unbalanced(layout: &Layout, only: Option<Mask>) -> Result<Analysis, Error> {
         let design = Design::new(layout).map_err(|m| Error::invalid(None, m))?;
+        if design.model.pools_above_residual() {
+            let s = &layout.structure;
+            let (o, t) = design
+                .model
+                .omitted
+                .iter()
+                .zip(&design.model.pooled_into)
+                .find(|(_, t)| **t != design.model.residual())
+                .map(|(o, &t)| (o.label(s), design.model.terms[t].label(s)))
+                .unwrap_or_default();
+            return Err(Error::invalid(
+                None,
+                format!(
+                    "with cells removed, emsplan pools an interaction assumed absent only into the residual, and {o} would join {t}: keep {o} in the model (set additive = false, or take it out of `omit`), or check the layout without the removals"
+                ),
+            ));
+        }
         let fit = Fit::new(&design, layout.sums_of_squares);
         let synthesised: SynthesisEms = fit.ems(&design);
         let model = design.model.clone();

@@ -34,6 +34,85 @@ pub struct CheckReport {
     /// For an unbalanced layout: which sums of squares, what was removed, what follows.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub unbalanced: Option<Summary>,
+    /// For a layout of units: the strata, what is estimated in each, the assumption of
+    /// additivity and any pseudoreplication.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub strata: Option<Strata>,
+}
+
+/// The strata of a layout of units, largest unit first.
+#[derive(Debug, Clone, Serialize)]
+pub struct Strata {
+    pub strata: Vec<Stratum>,
+    /// Whether units and treatments are taken as additive: the interactions of units
+    /// with treatments randomised to smaller units pooled into the stratum errors.
+    pub additive: bool,
+    /// The interactions that additivity pools, and the term each joins.
+    pub pooled: Vec<Pooled>,
+    /// Treatment terms tested over smaller units than the ones they were randomised to.
+    pub pseudoreplication: Vec<Pseudoreplication>,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Stratum {
+    pub unit: String,
+    /// Units per member of each unit it is within (in all, at the top).
+    pub count: u64,
+    pub within: Vec<String>,
+    /// Units in the whole experiment.
+    pub total: u64,
+    /// Treatments randomised to this unit.
+    pub carries: Vec<String>,
+    /// The unit's term (its variation), by label; the smallest unit's is the residual.
+    pub term: String,
+    /// The unit's term by its factors, when the unit has no factor of its own
+    /// (`block x nitrogen` for the main plot).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub same_as: Option<String>,
+    /// Whether the smallest unit: the observations, and the residual.
+    pub smallest: bool,
+    /// Whether some unit below this one carries a treatment: when not, and the unit is
+    /// below the smallest that does, it is a subsample.
+    pub subsample: bool,
+    /// Terms estimated in this stratum, the unit's own term first; their df add up to
+    /// the stratum's df.
+    pub terms: Vec<String>,
+    pub df: u64,
+}
+
+#[derive(Debug, Clone, Serialize)]
+pub struct Pooled {
+    pub term: String,
+    pub into: String,
+}
+
+/// A treatment term whose error is not the variation of the unit it was randomised to.
+#[derive(Debug, Clone, Serialize)]
+pub struct Pseudoreplication {
+    #[serde(skip)]
+    pub id: Mask,
+    pub term: String,
+    /// The unit the term's treatments were randomised to.
+    pub unit: String,
+    pub cause: PseudoCause,
+    /// What the term is tested over instead (empty: it has no test).
+    pub tested_over: Vec<String>,
+}
+
+#[derive(Debug, Clone, PartialEq, Serialize)]
+#[serde(tag = "cause", rename_all = "snake_case")]
+pub enum PseudoCause {
+    /// One unit per combination of the treatments it carries: unit differences and
+    /// treatment differences cannot be told apart. Replicating the unit fixes it.
+    OneUnitPerLevel {
+        count: u64,
+        within: Vec<String>,
+        /// The smallest count that replicates the unit: two per combination.
+        fix_count: u64,
+    },
+    /// The unit's own term is assumed absent (`omit`), so its variation is pooled with
+    /// that of smaller units.
+    UnitOmitted { unit_term: String },
 }
 
 impl CheckReport {
@@ -51,12 +130,21 @@ impl CheckReport {
         })
     }
 
-    /// Terms that need attention: a reason, a shortfall against the goal, or repairs.
+    /// Terms of interest that need attention: a reason, a shortfall against the goal,
+    /// or repairs. Nuisance terms (units, blocks) never do.
     pub fn needing_attention(&self) -> impl Iterator<Item = (&TermReport, &TestReport)> {
         self.terms.iter().filter_map(|t| {
             let test = t.test.as_ref()?;
-            (test.reason.is_some() || test.shortfall.is_some()).then_some((t, test))
+            (t.of_interest && (test.reason.is_some() || test.shortfall.is_some()))
+                .then_some((t, test))
         })
+    }
+
+    /// Pseudoreplication found in a layout of units.
+    pub fn pseudoreplication(&self) -> &[Pseudoreplication] {
+        self.strata
+            .as_ref()
+            .map_or(&[], |s| s.pseudoreplication.as_slice())
     }
 }
 
@@ -84,6 +172,15 @@ pub struct TermReport {
     pub within: Vec<String>,
     pub residual: bool,
     pub kind: Kind,
+    /// Whether the term matters (the goal's terms; by default the treatment terms of a
+    /// layout of units, every term otherwise): only these get advice and repairs.
+    pub of_interest: bool,
+    /// A unit's term with no factor of its own, by its factors: `block x nitrogen`.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub same_as: Option<String>,
+    /// The unit (stratum) the term is estimated in, in a layout of units.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub stratum: Option<String>,
     pub df: u64,
     /// E(MS) in the trade's order: σ² first, then the other components from the
     /// smallest unit up (growing coefficient), the term's own component last.

@@ -18,22 +18,59 @@ pub struct Goal {
 }
 
 impl Goal {
+    /// The goal of a file: `[search] must_test`, else `[layout] of_interest`, else (in a
+    /// layout of units) the treatment terms, else every term.
     pub fn from_spec(spec: &Spec, text: &str, layout: &Layout) -> Result<Goal, Error> {
-        let Some(search) = &spec.search else {
-            return Ok(Goal::default());
-        };
         let at = |span: std::ops::Range<usize>| Some(spec::line_of(text, span.start));
-        let mut must_test = Vec::new();
-        for m in &search.must_test {
-            let term = parse_term_label(&layout.structure, m.get_ref())
-                .map_err(|e| Error::invalid(at(m.span()), format!("[search] must_test: {e}")))?;
-            if term.is_residual() {
-                return Err(Error::invalid(
-                    at(m.span()),
-                    "[search] must_test: the residual is not tested; list model terms",
-                ));
+        let s = &layout.structure;
+        let listed = |key: &str, names: &[toml::Spanned<String>]| -> Result<Vec<Mask>, Error> {
+            let mut out = Vec::new();
+            for m in names {
+                let term = parse_term_label(s, m.get_ref())
+                    .map_err(|e| Error::invalid(at(m.span()), format!("{key}: {e}")))?;
+                if term.is_residual() {
+                    return Err(Error::invalid(
+                        at(m.span()),
+                        format!("{key}: the residual is not tested; list model terms"),
+                    ));
+                }
+                if out.contains(&term.live) {
+                    return Err(Error::invalid(
+                        at(m.span()),
+                        format!("{key}: \"{}\" is listed twice", m.get_ref()),
+                    ));
+                }
+                out.push(term.live);
             }
-            must_test.push(term.live);
+            Ok(out)
+        };
+        let of_interest = match &spec.layout {
+            Some(l) => listed("[layout] of_interest", &l.of_interest)?,
+            None => Vec::new(),
+        };
+        let treatment_terms = || -> Vec<Mask> {
+            crate::term::model_terms(s)
+                .iter()
+                .filter(|t| s.units.is_treatment_term(t.subscripts()))
+                .map(|t| t.live)
+                .collect()
+        };
+        let default_terms = if !of_interest.is_empty() {
+            of_interest
+        } else if s.units.declared() {
+            treatment_terms()
+        } else {
+            Vec::new()
+        };
+        let Some(search) = &spec.search else {
+            return Ok(Goal {
+                must_test: default_terms,
+                ..Goal::default()
+            });
+        };
+        let mut must_test = listed("[search] must_test", &search.must_test)?;
+        if must_test.is_empty() {
+            must_test = default_terms;
         }
         let min_df = match &search.min_df {
             None => None,

@@ -90,22 +90,20 @@ impl PlanningValues {
                     ));
                 }
                 if !term.is_residual() && !model.terms.contains(&term) {
-                    return Err(Error::invalid(
-                        line,
-                        format!(
-                            "[sd] \"{key}\" is assumed absent (in `omit`), so it has no variance"
-                        ),
-                    ));
+                    return Err(Error::invalid(line, absent("[sd]", key, s, &term)));
                 }
                 let sd = non_negative(*value.get_ref())
                     .map_err(|m| Error::invalid(line, format!("[sd] \"{key}\": {m}")))?;
                 priors.insert(term.live, sd);
             }
             if !priors.contains_key(&REPLICATE) {
-                return Err(Error::invalid(
-                    at(spanned.span()),
-                    "[sd] needs `residual`, the standard deviation between observations within a cell",
-                ));
+                let message = match s.units.alias(REPLICATE) {
+                    Some(name) => format!(
+                        "[sd] needs `{name}`, the standard deviation between {name}s (the smallest units, where the observations are made)"
+                    ),
+                    None => "[sd] needs `residual`, the standard deviation between observations within a cell".to_string(),
+                };
+                return Err(Error::invalid(at(spanned.span()), message));
             }
         }
         let mut effects = BTreeMap::new();
@@ -123,10 +121,7 @@ impl PlanningValues {
                     ));
                 }
                 if !model.terms.contains(&term) {
-                    return Err(Error::invalid(
-                        line,
-                        format!("[effect] \"{key}\" is assumed absent (in `omit`)"),
-                    ));
+                    return Err(Error::invalid(line, absent("[effect]", key, s, &term)));
                 }
                 let effect = match value.get_ref() {
                     EffectSpec::RootMeanSquare(x) => {
@@ -412,6 +407,21 @@ pub struct CostLine {
     pub cost: f64,
 }
 
+/// Why a planning key names no term: the term is assumed absent, by `omit`, by
+/// unit-treatment additivity, or because it is the smallest unit itself.
+fn absent(table: &str, key: &str, s: &Structure, term: &Term) -> String {
+    if s.units.pooled.contains(&term.live) {
+        format!(
+            "{table} \"{key}\" is pooled into its stratum's error, since units and treatments are taken as additive: remove the key, or set additive = false in [layout] to keep the interaction"
+        )
+    } else if s.units.merged == Some(term.live) {
+        let name = s.units.alias(REPLICATE).unwrap_or("residual");
+        format!("{table} \"{key}\" is the {name} itself: give its standard deviation as \"{name}\"")
+    } else {
+        format!("{table} \"{key}\" is assumed absent (in `omit`), so it has no variance")
+    }
+}
+
 /// The one cost formula: overhead plus Σ price × units bought, over (price, units) lines.
 pub fn priced_total(overhead: f64, lines: impl IntoIterator<Item = (f64, u64)>) -> f64 {
     overhead
@@ -434,7 +444,7 @@ impl CostModel {
                 CostLine {
                     term: live,
                     label: if live == REPLICATE {
-                        "residual".to_string()
+                        structure.units.alias(REPLICATE).unwrap_or("residual").to_string()
                     } else {
                         term_of(structure, live).label(structure)
                     },

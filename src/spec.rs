@@ -18,6 +18,13 @@ pub struct Spec {
     pub layout: Option<LayoutSpec>,
     #[serde(default)]
     pub factor: Vec<Spanned<FactorSpec>>,
+    /// `[[unit]]`: the physical units of the experiment (blocks, chambers, plots,
+    /// animals), each nested in the units it divides.
+    #[serde(default)]
+    pub unit: Vec<Spanned<UnitSpec>>,
+    /// `[[treatment]]`: what is compared, each randomised to one unit.
+    #[serde(default)]
+    pub treatment: Vec<Spanned<TreatmentSpec>>,
     /// `[sd]`: the standard deviations guessed for the random terms and the residual,
     /// for planning. A file may still call the table by its old name, `[prior]`.
     pub sd: Option<Spanned<BTreeMap<String, Spanned<f64>>>>,
@@ -52,11 +59,21 @@ impl std::fmt::Display for Note {
     }
 }
 
-#[derive(Debug, Clone, Deserialize)]
+#[derive(Debug, Clone, Default, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct LayoutSpec {
     pub name: Option<String>,
-    pub replicates: Spanned<i64>,
+    /// Observations per cell of a file of `[[factor]]` tables; a file of units says
+    /// how many units of each kind instead.
+    pub replicates: Option<Spanned<i64>>,
+    /// With units: whether units and treatments are additive (interactions of a unit
+    /// with treatments randomised to smaller units assumed absent and pooled into the
+    /// stratum error), the default, or not (those interactions kept as random terms).
+    pub additive: Option<Spanned<bool>>,
+    /// The terms that matter: they get advice and repairs. By default every term of a
+    /// file of factors, and the treatment terms of a file of units.
+    #[serde(default)]
+    pub of_interest: Vec<Spanned<String>>,
     pub convention: Option<Spanned<ConventionSpec>>,
     #[serde(default)]
     pub omit: Vec<Spanned<String>>,
@@ -98,6 +115,43 @@ pub struct FactorSpec {
     pub levels: Spanned<i64>,
     #[serde(default)]
     pub within: Vec<Spanned<String>>,
+    pub population: Option<Spanned<i64>>,
+}
+
+/// One name or a list of names.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(untagged)]
+pub enum Names {
+    One(String),
+    Many(Vec<String>),
+}
+
+impl Names {
+    pub fn list(&self) -> Vec<&str> {
+        match self {
+            Names::One(n) => vec![n.as_str()],
+            Names::Many(v) => v.iter().map(String::as_str).collect(),
+        }
+    }
+}
+
+/// A kind of unit: how many of them in each unit it is `within` (in all, at the top).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct UnitSpec {
+    pub name: Spanned<String>,
+    pub count: Spanned<i64>,
+    pub within: Option<Spanned<Names>>,
+}
+
+/// A treatment factor and the unit its levels are randomised to.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TreatmentSpec {
+    pub name: Spanned<String>,
+    pub kind: Option<Spanned<KindSpec>>,
+    pub levels: Spanned<i64>,
+    pub randomised_to: Spanned<Names>,
     pub population: Option<Spanned<i64>>,
 }
 

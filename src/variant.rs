@@ -6,20 +6,8 @@
 
 use crate::layout::{Layout, Levels, Structure};
 use crate::planning::{CostModel, PlanningValues};
-use crate::term::{Mask, REPLICATE};
-
-/// A live set with factor `dropped` removed and the factors above it renumbered down;
-/// `None` when the set holds the dropped factor.
-pub fn remap_mask(mask: Mask, dropped: usize) -> Option<Mask> {
-    if mask & (1 << dropped) != 0 {
-        return None;
-    }
-    let replicate = mask & REPLICATE;
-    let factors = mask & !REPLICATE;
-    let low = factors & ((1 << dropped) - 1);
-    let high = (factors >> (dropped + 1)) << dropped;
-    Some(low | high | replicate)
-}
+pub use crate::term::remap_mask;
+use crate::term::Mask;
 
 /// Leaves out factor `f`: the factors nested in it move up to its nests; priors, effects
 /// and unit costs of terms that involve it go with it. Returns the new layout and
@@ -56,7 +44,8 @@ pub fn drop_factor(
         .filter_map(|&m| remap_mask(m, f))
         .filter(|m| m.count_ones() >= 2)
         .collect();
-    let structure = Structure::new(factors, omitted, s.convention)?;
+    let mut structure = Structure::new(factors, omitted, s.convention)?;
+    structure.units = s.units.without_factor(f);
     let mut per_factor = layout.levels.per_factor.clone();
     per_factor.remove(f);
     let levels = Levels {
@@ -118,7 +107,12 @@ pub fn set_within(layout: &Layout, f: usize, within: Mask) -> Result<Layout, Str
     for factor in &mut factors {
         factor.ancestors = 0;
     }
-    let structure = Structure::new(factors, s.omitted.clone(), s.convention)?;
+    let mut structure = Structure::new(factors, s.omitted.clone(), s.convention)?;
+    // A unit is a place in the nesting; nested differently, the file's units no longer
+    // describe the layout, which is then one of factors.
+    if s.units.declared() {
+        structure.units = crate::layout::Units::default();
+    }
     for &m in &structure.omitted {
         let ok = structure
             .factors
@@ -146,6 +140,7 @@ pub fn set_within(layout: &Layout, f: usize, within: Mask) -> Result<Layout, Str
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::term::REPLICATE;
 
     #[test]
     fn remap_shifts_higher_factors_down() {

@@ -16,8 +16,10 @@ use crate::spec::{self, ConventionSpec, KindSpec, Spec, SumsOfSquaresSpec};
 use crate::term::{Mask, Term, parse_term_label};
 pub mod removal;
 pub mod term;
+pub mod units;
 
 pub use removal::Removal;
+pub use units::{Place, Unit, Units};
 
 /// Why an unbalanced layout is not checked under the restricted convention.
 pub const RESTRICTED_UNBALANCED: &str = "the restricted convention (mixed interaction effects summing to zero over the fixed levels) is defined for balanced layouts; with cells removed the sums run over unequal numbers of observations and the model is not defined the same way, so emsplan uses the unrestricted model for unbalanced layouts: set convention = \"unrestricted\" or leave the key out";
@@ -67,9 +69,12 @@ pub struct Factor {
 #[derive(Debug, Clone, PartialEq, Eq, Hash)]
 pub struct Structure {
     pub factors: Vec<Factor>,
-    /// Live sets of interactions assumed absent; their df pool into the residual.
+    /// Live sets of interactions assumed absent; each is pooled into the smallest
+    /// remaining random term that contains it (see `ems::Model`).
     pub omitted: Vec<Mask>,
     pub convention: Convention,
+    /// The units and treatments, when the file declares them.
+    pub units: Units,
 }
 
 /// Level counts: `per_factor[i]` levels of factor i in each combination of its nests.
@@ -189,6 +194,7 @@ impl Structure {
             factors,
             omitted,
             convention,
+            units: Units::default(),
         })
     }
 }
@@ -257,12 +263,180 @@ impl Layout {
     /// Turns a parsed spec into a layout, with line numbers taken from `text`.
     pub fn from_spec(spec: &Spec, text: &str) -> Result<Layout, Error> {
         let at = |span: std::ops::Range<usize>| Some(spec::line_of(text, span.start));
-        let layout_spec = spec.layout.as_ref().ok_or_else(|| {
-            Error::invalid(
-                None,
-                "missing [layout] table: add one with at least `replicates = N`",
-            )
+        let default_layout = spec::LayoutSpec::default();
+        let layout_spec = match &spec.layout {
+            Some(l) => l,
+            None if !spec.unit.is_empty() => &default_layout,
+            None => {
+                return Err(Error::invalid(
+                    None,
+                    "missing [layout] table: add one with at least `replicates = N`",
+                ));
+            }
+        };
+        let units_file = !spec.unit.is_empty() || !spec.treatment.is_empty();
+        let (factors, per_factor, built_replicates, units) = if units_file {
+            let b = units::build(spec, text)?;
+            (b.factors, b.per_factor, Some(b.replicates), b.units)
+        } else {
+            let (factors, per_factor) = factors_from_spec(spec, text)?;
+            (factors, per_factor, None, Units::default())
+        };
+        let names: Vec<String> = factors.iter().map(|f| f.name.clone()).collect();
+        let convention = match layout_spec.convention.as_ref().map(|c| *c.get_ref()) {
+            None | Some(ConventionSpec::Restricted) => Convention::Restricted,
+            Some(ConventionSpec::Unrestricted) => Convention::Unrestricted,
+        };
+        let mut structure = Structure::new(factors, Vec::new(), convention).map_err(|m| {
+            // A cycle: point at the first `within` entry of a factor on it.
+            let line = spec
+                .factor
+                .iter()
+                .zip(&names)
+                .find(|(f, n)| m.contains(&format!("\"{n}\"")) && !f.get_ref().within.is_empty())
+                .and_then(|(f, _)| f.get_ref().within.first())
+                .map(|w| spec::line_of(text, w.span().start));
+            Error::invalid(line, m)
         })?;
+        if units.declared() {
+            let additive = layout_spec
+                .additive
+                .as_ref()
+                .is_none_or(|a| *a.get_ref());
+            structure.units = units;
+            structure.units.additive = additive;
+            structure.omitted.extend(structure.units.merged);
+            if additive {
+                let pooled: Vec<Mask> = crate::term::model_terms(&structure)
+                    .iter()
+                    .map(|t| (t.live, t.subscripts()))
+                    .filter(|&(live, subs)| {
+                        let u = &structure.units;
+                        !u.is_unit_term(live)
+                            && subs & u.treatments != 0
+                            && subs & !u.treatments != 0
+                    })
+                    .map(|(live, _)| live)
+                    .collect();
+                structure.units.pooled = pooled.clone();
+                structure.omitted.extend(pooled);
+            }
+        } else if let Some(a) = &layout_spec.additive {
+            return Err(Error::invalid(
+                at(a.span()),
+                "`additive` is about units and treatments, and this file has [[factor]] tables: list interactions assumed absent in `omit` instead",
+            ));
+        }
+
+        for o in &layout_spec.omit {
+            let line = at(o.span());
+            let term = parse_term_label(&structure, o.get_ref())
+                .map_err(|m| Error::invalid(line, format!("omit: {m}")))?;
+            if term.is_residual() {
+                return Err(Error::invalid(
+                    line,
+                    "omit: \"residual\" is the variation within cells, not an interaction, and cannot be assumed absent",
+                ));
+            }
+            if term.live.count_ones() < 2 {
+                return Err(Error::invalid(
+                    line,
+                    format!(
+                        "omit: \"{}\" is a main effect; only interactions can be assumed absent",
+                        o.get_ref()
+                    ),
+                ));
+            }
+            if structure.units.pooled.contains(&term.live) {
+                return Err(Error::invalid(
+                    line,
+                    format!(
+                        "omit: \"{}\" is already pooled, since units and treatments are taken as additive: remove it from `omit`",
+                        o.get_ref()
+                    ),
+                ));
+            }
+            if structure.omitted.contains(&term.live) {
+                return Err(Error::invalid(
+                    line,
+                    format!("omit: \"{}\" is listed twice", o.get_ref()),
+                ));
+            }
+            structure.omitted.push(term.live);
+        }
+
+        let replicates = match (built_replicates, &layout_spec.replicates) {
+            (Some(r), _) => r,
+            (None, Some(r)) => positive(*r.get_ref(), || {
+                "replicates must be a whole number of at least 1 (observations per cell)"
+                    .to_string()
+            })
+            .map_err(|m| Error::invalid(at(r.span()), m))?,
+            (None, None) => {
+                return Err(Error::invalid(
+                    None,
+                    "[layout] has no `replicates`: say how many observations each cell holds, e.g. replicates = 3",
+                ));
+            }
+        };
+        let levels = Levels {
+            per_factor,
+            replicates,
+        };
+        let name = layout_spec.name.clone().unwrap_or_default();
+        // Level-dependent checks, with the line of the offending factor where there is one.
+        if let Err(m) = check_levels(&structure, &levels) {
+            let line = spec
+                .factor
+                .iter()
+                .zip(&names)
+                .find(|(_, n)| m.contains(&format!("\"{n}\"")))
+                .map(|(f, _)| spec::line_of(text, f.get_ref().name.span().start));
+            return Err(Error::invalid(line, m));
+        }
+        let mut removed = Vec::new();
+        for r in &layout_spec.remove {
+            let entries: Vec<(String, i64, Option<usize>)> = r
+                .get_ref()
+                .iter()
+                .map(|(k, v)| (k.clone(), *v.get_ref(), at(v.span())))
+                .collect();
+            let line = at(r.span());
+            removed.push(
+                Removal::parse(&structure, &levels, &entries, line)
+                    .map_err(|(l, m)| Error::invalid(l, m))?,
+            );
+        }
+        if !removed.is_empty()
+            && let Some(c) = &layout_spec.convention
+            && *c.get_ref() == ConventionSpec::Restricted
+        {
+            return Err(Error::invalid(at(c.span()), RESTRICTED_UNBALANCED));
+        }
+        if !removed.is_empty() && layout_spec.convention.is_none() {
+            // The unrestricted model is the only one defined for unbalanced layouts.
+            structure.convention = Convention::Unrestricted;
+        }
+        let sums_of_squares = match layout_spec.sums_of_squares.as_ref().map(|x| *x.get_ref()) {
+            None | Some(SumsOfSquaresSpec::Sequential) => SumsOfSquares::Sequential,
+            Some(SumsOfSquaresSpec::Type3) => SumsOfSquares::Type3,
+        };
+        let layout = Layout {
+            name,
+            structure,
+            levels,
+            removed: Vec::new(),
+            sums_of_squares,
+        };
+        layout
+            .with_removals(removed)
+            .map_err(|(l, m)| Error::invalid(l, m))
+    }
+}
+
+/// The factors of a file of `[[factor]]` tables, with their level counts.
+fn factors_from_spec(spec: &Spec, text: &str) -> Result<(Vec<Factor>, Vec<u64>), Error> {
+    let at = |span: std::ops::Range<usize>| Some(spec::line_of(text, span.start));
         if spec.factor.is_empty() {
             return Err(Error::invalid(
                 None,
@@ -359,107 +533,7 @@ impl Layout {
                 population,
             });
         }
-        let convention = match layout_spec.convention.as_ref().map(|c| *c.get_ref()) {
-            None | Some(ConventionSpec::Restricted) => Convention::Restricted,
-            Some(ConventionSpec::Unrestricted) => Convention::Unrestricted,
-        };
-        let mut structure = Structure::new(factors, Vec::new(), convention).map_err(|m| {
-            // A cycle: point at the first `within` entry of a factor on it.
-            let line = spec
-                .factor
-                .iter()
-                .zip(&names)
-                .find(|(f, n)| m.contains(&format!("\"{n}\"")) && !f.get_ref().within.is_empty())
-                .and_then(|(f, _)| f.get_ref().within.first())
-                .map(|w| spec::line_of(text, w.span().start));
-            Error::invalid(line, m)
-        })?;
-
-        for o in &layout_spec.omit {
-            let line = at(o.span());
-            let term = parse_term_label(&structure, o.get_ref())
-                .map_err(|m| Error::invalid(line, format!("omit: {m}")))?;
-            if term.is_residual() {
-                return Err(Error::invalid(
-                    line,
-                    "omit: \"residual\" is the variation within cells, not an interaction, and cannot be assumed absent",
-                ));
-            }
-            if term.live.count_ones() < 2 {
-                return Err(Error::invalid(
-                    line,
-                    format!(
-                        "omit: \"{}\" is a main effect; only interactions can be assumed absent",
-                        o.get_ref()
-                    ),
-                ));
-            }
-            if structure.omitted.contains(&term.live) {
-                return Err(Error::invalid(
-                    line,
-                    format!("omit: \"{}\" is listed twice", o.get_ref()),
-                ));
-            }
-            structure.omitted.push(term.live);
-        }
-
-        let replicates = positive(*layout_spec.replicates.get_ref(), || {
-            "replicates must be a whole number of at least 1 (observations per cell)".to_string()
-        })
-        .map_err(|m| Error::invalid(at(layout_spec.replicates.span()), m))?;
-        let levels = Levels {
-            per_factor,
-            replicates,
-        };
-        let name = layout_spec.name.clone().unwrap_or_default();
-        // Level-dependent checks, with the line of the offending factor where there is one.
-        if let Err(m) = check_levels(&structure, &levels) {
-            let line = spec
-                .factor
-                .iter()
-                .zip(&names)
-                .find(|(_, n)| m.contains(&format!("\"{n}\"")))
-                .map(|(f, _)| spec::line_of(text, f.get_ref().name.span().start));
-            return Err(Error::invalid(line, m));
-        }
-        let mut removed = Vec::new();
-        for r in &layout_spec.remove {
-            let entries: Vec<(String, i64, Option<usize>)> = r
-                .get_ref()
-                .iter()
-                .map(|(k, v)| (k.clone(), *v.get_ref(), at(v.span())))
-                .collect();
-            let line = at(r.span());
-            removed.push(
-                Removal::parse(&structure, &levels, &entries, line)
-                    .map_err(|(l, m)| Error::invalid(l, m))?,
-            );
-        }
-        if !removed.is_empty()
-            && let Some(c) = &layout_spec.convention
-            && *c.get_ref() == ConventionSpec::Restricted
-        {
-            return Err(Error::invalid(at(c.span()), RESTRICTED_UNBALANCED));
-        }
-        if !removed.is_empty() && layout_spec.convention.is_none() {
-            // The unrestricted model is the only one defined for unbalanced layouts.
-            structure.convention = Convention::Unrestricted;
-        }
-        let sums_of_squares = match layout_spec.sums_of_squares.as_ref().map(|x| *x.get_ref()) {
-            None | Some(SumsOfSquaresSpec::Sequential) => SumsOfSquares::Sequential,
-            Some(SumsOfSquaresSpec::Type3) => SumsOfSquares::Type3,
-        };
-        let layout = Layout {
-            name,
-            structure,
-            levels,
-            removed: Vec::new(),
-            sums_of_squares,
-        };
-        layout
-            .with_removals(removed)
-            .map_err(|(l, m)| Error::invalid(l, m))
-    }
+    Ok((factors, per_factor))
 }
 
 /// A term made only of this structure's factors, with its nesting.

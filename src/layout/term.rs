@@ -59,8 +59,21 @@ impl Term {
         names(structure, self.nest)
     }
 
-    /// `cultivar x bench(light)`; `residual` for the residual.
+    /// `cultivar x bench(light)`; `residual` for the residual. A term that is a unit
+    /// with no factor of its own goes by the unit's name (`plot` for block x nitrogen),
+    /// and so does the residual of a layout of units.
     pub fn label(&self, structure: &Structure) -> String {
+        if let Some(name) = structure.units.alias(self.live) {
+            return name.to_string();
+        }
+        if self.is_residual() {
+            return "residual".into();
+        }
+        self.interaction_label(structure)
+    }
+
+    /// The label by factors alone, whatever unit the term is: `block x nitrogen`.
+    pub fn interaction_label(&self, structure: &Structure) -> String {
         if self.is_residual() {
             return "residual".into();
         }
@@ -74,6 +87,9 @@ impl Term {
 
     /// The live factors alone (`cultivar x bench`), which identify the term.
     pub fn short_label(&self, structure: &Structure) -> String {
+        if let Some(name) = structure.units.alias(self.live) {
+            return name.to_string();
+        }
         if self.is_residual() {
             return "residual".into();
         }
@@ -108,6 +124,19 @@ impl Term {
         }
         c
     }
+}
+
+/// A live set with factor `dropped` removed and the factors above it renumbered down;
+/// `None` when the set holds the dropped factor.
+pub fn remap_mask(mask: Mask, dropped: usize) -> Option<Mask> {
+    if mask & (1 << dropped) != 0 {
+        return None;
+    }
+    let replicate = mask & REPLICATE;
+    let factors = mask & !REPLICATE;
+    let low = factors & ((1 << dropped) - 1);
+    let high = (factors >> (dropped + 1)) << dropped;
+    Some(low | high | replicate)
 }
 
 fn names(structure: &Structure, mask: Mask) -> Vec<&str> {
@@ -149,6 +178,12 @@ pub fn parse_term_label(structure: &Structure, text: &str) -> Result<Term, Strin
     let text = text.trim();
     if text == "residual" {
         return Ok(Term::residual(structure));
+    }
+    if let Some(u) = structure.units.by_name(text) {
+        return Ok(match u.place {
+            crate::layout::Place::Residual => Term::residual(structure),
+            _ => term_of(structure, u.live()),
+        });
     }
     let (live_text, nest_text) = match text.find('(') {
         Some(open) => {

@@ -56,8 +56,9 @@ pub fn coefficient(c: &Coefficient) -> String {
 }
 
 /// `σ²`, `σ²(bench)` or `κ²(light)`: a component in the trade's notation.
+/// The residual of a layout of units carries the smallest unit's name: `σ²(pot)`.
 pub fn symbol(kind: Kind, residual: bool, short_label: &str) -> String {
-    if residual {
+    if residual && short_label == "residual" {
         return "σ²".into();
     }
     match kind {

@@ -109,6 +109,8 @@ pub struct Screen {
     /// σ² of each random term with a prior (0 without).
     prior_sq: Vec<f64>,
     has_priors: bool,
+    /// Whether some omitted term is pooled into a term above the residual.
+    pools_above_residual: bool,
     alpha: f64,
     min_df: Option<f64>,
     exact_only: bool,
@@ -144,7 +146,10 @@ impl Screen {
             .filter(|&d| variant.dims[d].values.contains(&1))
             .collect();
         let finite = s.factors.iter().any(|f| f.population.is_some());
-        let cache = (!finite).then(|| {
+        // A mean square pooled above the residual mixes expectations in proportions
+        // that change with the level counts, so its error terms are not shared.
+        let pools_above_residual = model.pools_above_residual();
+        let cache = (!finite && !pools_above_residual).then(|| {
             (0..1usize << one_dims.len())
                 .map(|_| OnceLock::new())
                 .collect()
@@ -160,6 +165,7 @@ impl Screen {
             .collect();
         Screen {
             has_priors: variant.plan.has_priors(),
+            pools_above_residual,
             alpha: variant.plan.alpha,
             variant,
             model,
@@ -276,17 +282,42 @@ impl Screen {
 
     /// df of term `t` of the model (the residual: cells × (replicates - 1) + pooled).
     pub fn df(&self, t: usize, levels: &Levels) -> u64 {
-        if t == self.model.residual() {
-            let pooled: u64 = self.model.omitted.iter().map(|o| o.df(levels)).sum();
-            levels.cells() * (levels.replicates - 1) + pooled
+        let own = if t == self.model.residual() {
+            levels.cells() * (levels.replicates - 1)
         } else {
             self.model.terms[t].df(levels)
-        }
+        };
+        own + self
+            .model
+            .pooled(t)
+            .map(|o| self.model.omitted[o].df(levels))
+            .sum::<u64>()
     }
 
     /// E(MS) of term `t` under the planning values: Σ coefficient × θ over its row, with
     /// θ = σ² for a random component and κ² = RMS² × cells / df for a fixed one.
     fn ems_value(&self, t: usize, levels: &Levels) -> f64 {
+        let own = self.row_value(&self.model.rows[t], levels);
+        if !self.pools_above_residual {
+            return own;
+        }
+        // A pooled mean square: the df-weighted mean of the pooled expectations.
+        let mut df = if t == self.model.residual() {
+            levels.cells() * (levels.replicates - 1)
+        } else {
+            self.model.terms[t].df(levels)
+        } as f64;
+        let mut total = own * df;
+        for o in self.model.pooled(t) {
+            let d = self.model.omitted[o].df(levels) as f64;
+            total += d * self.row_value(&self.model.omitted_rows[o], levels);
+            df += d;
+        }
+        if df > 0.0 { total / df } else { own }
+    }
+
+    /// Σ coefficient × θ over one symbolic row.
+    fn row_value(&self, row: &[crate::ems::SymbolicEntry], levels: &Levels) -> f64 {
         let plan = &self.variant.plan;
         let count = |j: u32| -> f64 {
             if 1u32 << j == REPLICATE {
@@ -296,7 +327,7 @@ impl Screen {
             }
         };
         let mut total = 0.0;
-        for e in &self.model.rows[t] {
+        for e in row {
             let u = self.model.terms[e.component];
             let theta = match self.model.kinds[e.component] {
                 Kind::Random => self.prior_sq[e.component],

@@ -443,17 +443,17 @@ impl Program<'_> {
         // Denominator df of the exact tests.
         if let Some(min) = self.min_df {
             for &d in self.exact_denominators {
-                let df = if d == screen.model.residual() {
+                let mut df = if d == screen.model.residual() {
                     let all = s.all_factors() | REPLICATE;
-                    let mut e = self.monomial(&mut b, REPLICATE, all, true);
-                    for o in &screen.model.omitted {
-                        e += self.monomial(&mut b, o.live, o.subscripts(), true);
-                    }
-                    e
+                    self.monomial(&mut b, REPLICATE, all, true)
                 } else {
                     let t = screen.model.terms[d];
                     self.monomial(&mut b, t.live, t.subscripts(), true)
                 };
+                for o in screen.model.pooled(d) {
+                    let o = screen.model.omitted[o];
+                    df += self.monomial(&mut b, o.live, o.subscripts(), true);
+                }
                 b.constraints.push(df.geq(min - 1e-7));
             }
         }

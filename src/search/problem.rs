@@ -118,16 +118,16 @@ impl Problem {
         // The goal (must-test terms, min_df, target_power, exact_only) is read as `check`
         // and `compare` read it; the search adds what a search needs on top.
         let goal = Goal::from_spec(spec, text, &base)?;
-        if search.must_test.is_empty() {
+        if goal.must_test.is_empty() {
             return Err(Error::invalid(
                 None,
                 "[search] must_test is empty or missing: name the terms the experiment must be able to test, e.g. must_test = [\"light\"]",
             ));
         }
         let mut must_test: Vec<MustTest> = Vec::new();
-        for (m, &live) in search.must_test.iter().zip(&goal.must_test) {
-            let line = at(m.span());
-            let label = m.get_ref().trim();
+        for (k, &live) in goal.must_test.iter().enumerate() {
+            let line = search.must_test.get(k).and_then(|m| at(m.span()));
+            let label = crate::layout::term_of(s, live).short_label(s);
             if s.is_omitted(live) {
                 return Err(Error::invalid(
                     line,
