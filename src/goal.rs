@@ -45,7 +45,7 @@ impl Goal {
             Ok(out)
         };
         let of_interest = match &spec.layout {
-            Some(l) => listed("[layout] of_interest", &l.of_interest)?,
+            Some(l) => listed("[layout] of_interest", &l.get_ref().of_interest)?,
             None => Vec::new(),
         };
         let treatment_terms = || -> Vec<Mask> {

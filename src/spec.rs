@@ -15,7 +15,7 @@ use crate::error::Error;
 #[serde(deny_unknown_fields)]
 pub struct Spec {
     pub alpha: Option<Spanned<f64>>,
-    pub layout: Option<LayoutSpec>,
+    pub layout: Option<Spanned<LayoutSpec>>,
     #[serde(default)]
     pub factor: Vec<Spanned<FactorSpec>>,
     /// `[[unit]]`: the physical units of the experiment (blocks, chambers, plots,

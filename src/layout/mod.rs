@@ -264,9 +264,9 @@ impl Layout {
     pub fn from_spec(spec: &Spec, text: &str) -> Result<Layout, Error> {
         let at = |span: std::ops::Range<usize>| Some(spec::line_of(text, span.start));
         let default_layout = spec::LayoutSpec::default();
-        let layout_spec = match &spec.layout {
-            Some(l) => l,
-            None if !spec.unit.is_empty() => &default_layout,
+        let (layout_spec, layout_line) = match &spec.layout {
+            Some(l) => (l.get_ref(), at(l.span())),
+            None if !spec.unit.is_empty() => (&default_layout, None),
             None => {
                 return Err(Error::invalid(
                     None,
@@ -374,7 +374,7 @@ impl Layout {
             .map_err(|m| Error::invalid(at(r.span()), m))?,
             (None, None) => {
                 return Err(Error::invalid(
-                    None,
+                    layout_line,
                     "[layout] has no `replicates`: say how many observations each cell holds, e.g. replicates = 3",
                 ));
             }

@@ -231,7 +231,7 @@ pub(super) fn build(
         ));
     }
     if let Some(l) = spec.layout.as_ref()
-        && let Some(r) = &l.replicates
+        && let Some(r) = &l.get_ref().replicates
     {
         return Err(Error::invalid(
             at(r.span()),

@@ -180,7 +180,7 @@ fn write(report: &CheckReport, page: Page) -> String {
     };
     out.push_str(&page.table(header(report), rows(report)));
     out.push('\n');
-    out.push_str(&page.paragraph(LEGEND));
+    out.push_str(&page.paragraph(words::legend(report)));
     if let Some(u) = &report.unbalanced {
         out.push('\n');
         out.push_str(&page.paragraph(&words::unbalanced_line(u)));
@@ -202,6 +202,18 @@ fn write(report: &CheckReport, page: Page) -> String {
         out.push('\n');
         out.push_str(&page.paragraph(&c));
     }
+    if let Some(st) = &report.strata {
+        out.push_str(&page.heading("Units and strata, largest first"));
+        for line in words::strata_lines(st) {
+            out.push_str(&page.item(&line));
+        }
+        if let Some(note) = words::additivity_note(st) {
+            out.push('\n');
+            out.push_str(&page.paragraph(&note));
+        }
+        out.push('\n');
+        out.push_str(&page.paragraph(&words::interest_note(report)));
+    }
     if report.planned() {
         out.push('\n');
         out.push_str(&page.paragraph(CAUTION));
@@ -210,7 +222,11 @@ fn write(report: &CheckReport, page: Page) -> String {
     if findings.is_empty() {
         if let Page::Text(_) = page {
             out.push('\n');
-            out.push_str(&page.paragraph("Every term with df has an exact F test."));
+            out.push_str(&page.paragraph(if report.strata.is_some() {
+                "Every term of interest has an exact F test over the units it was randomised to."
+            } else {
+                "Every term with df has an exact F test."
+            }));
         }
     } else {
         out.push_str(&page.heading("What needs attention, and why"));

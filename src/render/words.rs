@@ -5,8 +5,9 @@
 use crate::engine::Coefficient;
 use crate::errorterm::{Verdict, weight_text};
 use crate::findings::{
-    Cause, ChangeReport, CheckReport, Component, DenominatorPart, PlanningGaps, Reason,
-    RepairReport, Shortfall, Summary, TermReport, TestReport, Unit, Warning,
+    Cause, ChangeReport, CheckReport, Component, DenominatorPart, PlanningGaps, PseudoCause,
+    Pseudoreplication, Reason, RepairReport, Shortfall, Strata, Summary, TermReport, TestReport,
+    Unit, Warning,
 };
 use crate::layout::{Kind, SumsOfSquares};
 
@@ -414,14 +415,152 @@ pub fn warning(w: &Warning) -> String {
     }
 }
 
-/// Everything that needs attention, in words: the warnings, then each term's finding.
+/// Everything that needs attention, in words: pseudoreplication, the warnings, then
+/// each term's finding.
 pub fn findings(report: &CheckReport) -> Vec<String> {
     report
-        .warnings
+        .pseudoreplication()
         .iter()
-        .map(warning)
+        .map(pseudoreplication)
+        .chain(report.warnings.iter().map(warning))
         .chain(report.needing_attention().map(|(t, x)| finding(t, x)))
         .collect()
+}
+
+/// The legend of the E(MS) notation, for a layout of factors or of units.
+pub fn legend(report: &CheckReport) -> &'static str {
+    if report.strata.is_some() {
+        LEGEND_UNITS
+    } else {
+        LEGEND
+    }
+}
+
+pub const LEGEND_UNITS: &str = "σ²(unit): the variance between units of that kind (the smallest unit's is the residual); σ²(term): the variance of a random term's effects; κ²(term): Σ effect² / df of a fixed term's effects.";
+
+/// A treatment term tested over smaller units than it was randomised to, in words.
+pub fn pseudoreplication(p: &Pseudoreplication) -> String {
+    let over = if p.tested_over.is_empty() {
+        "it has no test at all".to_string()
+    } else {
+        format!("its test over {} treats", and_list(&p.tested_over))
+    };
+    match &p.cause {
+        PseudoCause::OneUnitPerLevel {
+            count,
+            within,
+            fix_count,
+        } => {
+            let per = if within.is_empty() {
+                "in all".to_string()
+            } else {
+                format!("per {}", within.join(" and "))
+            };
+            let test = if p.tested_over.is_empty() {
+                over
+            } else {
+                format!("{over} smaller units as if they were replicate {}s", p.unit)
+            };
+            format!(
+                "{term} is pseudoreplicated (Hurlbert 1984): {term} was randomised to {unit}s, but there are {count} {unit}s {per}, one for each level, so differences between {unit}s cannot be told apart from the effect of {term}, and {test}. Replicate the {unit}: {fix_count} {unit}s {per} (two for each level) give {term} a test over {unit}s.",
+                term = p.term,
+                unit = p.unit,
+            )
+        }
+        PseudoCause::UnitOmitted { unit_term } => {
+            let test = if p.tested_over.is_empty() {
+                over
+            } else {
+                format!("{over} smaller units as if they were replicate {}s", p.unit)
+            };
+            format!(
+                "{term} is pseudoreplicated (Hurlbert 1984): {term} was randomised to {unit}s, but `omit` takes {unit} ({unit_term}) as absent, so {test}. Take {unit_term} out of `omit`.",
+                term = p.term,
+                unit = p.unit,
+            )
+        }
+    }
+}
+
+/// Which terms get advice.
+pub fn interest_note(report: &CheckReport) -> String {
+    let interest: Vec<String> = report
+        .terms
+        .iter()
+        .filter(|t| t.of_interest)
+        .map(|t| t.label.clone())
+        .collect();
+    let others = report.terms.iter().filter(|t| !t.of_interest && !t.residual).count();
+    if others == 0 {
+        return format!("Terms of interest: all of them ({}).", and_list(&interest));
+    }
+    format!(
+        "Terms of interest: {}. The others (units, blocks, their interactions) are shown with their df and E(MS) but draw no advice; name the terms that matter in [layout] of_interest to change this.",
+        and_list(&interest)
+    )
+}
+
+/// The units and strata in words: one line per unit, largest first.
+pub fn strata_lines(s: &Strata) -> Vec<String> {
+    s.strata
+        .iter()
+        .map(|st| {
+            let per = if st.within.is_empty() {
+                format!("{} in all", st.count)
+            } else {
+                format!("{} per {}, {} in all", st.count, st.within.join(" and "), st.total)
+            };
+            let what = if st.smallest && st.subsample {
+                ", subsamples: the units measured"
+            } else if st.smallest {
+                ", the units measured"
+            } else {
+                ""
+            };
+            let carries = if st.carries.is_empty() {
+                if st.subsample {
+                    "no treatment is randomised to them".to_string()
+                } else {
+                    "no treatment is randomised to them (a block)".to_string()
+                }
+            } else {
+                format!(
+                    "{} {} randomised to them",
+                    and_list(&st.carries),
+                    if st.carries.len() == 1 { "is" } else { "are" }
+                )
+            };
+            let same = st
+                .same_as
+                .as_ref()
+                .map_or(String::new(), |x| format!(" (the {x} term)"));
+            format!(
+                "{}{same}: {per}{what}; {carries}. Estimated here ({} df): {}.",
+                st.unit,
+                st.df,
+                st.terms.join(", ")
+            )
+        })
+        .collect()
+}
+
+/// The additivity assumption and its risk, or what keeping the interactions costs.
+pub fn additivity_note(s: &Strata) -> Option<String> {
+    if s.additive && !s.pooled.is_empty() {
+        let pooled: Vec<String> = s
+            .pooled
+            .iter()
+            .map(|p| format!("{} into {}", p.term, p.into))
+            .collect();
+        Some(format!(
+            "Assumed: units and treatments are additive (no unit x treatment interaction), so each such interaction is pooled into its stratum's error: {}. This is the textbook analysis; if treatments may act differently from unit to unit (varieties ranking differently from block to block), the pooled error is too small and the tests too liberal: set additive = false in [layout] to keep these interactions as random terms, at the cost of fewer denominator df.",
+            and_list(&pooled)
+        ))
+    } else if !s.additive {
+        Some("Units and treatments are not taken as additive (additive = false): the interactions of units with treatments are kept as random terms, the mixed-model analysis. Their tests have fewer denominator df than the textbook analysis, which pools them.".into())
+    } else {
+        None
+    }
 }
 
 /// What the planning values leave out, in words.
