@@ -121,11 +121,25 @@ pub fn error_term(model: &Model, ems: &Ems, df: &[u64], t: usize) -> ErrorTerm {
         denominator: Vec::new(),
         isolated,
     };
-    if !isolated.is_empty() {
+    if !isolated.is_empty() && !model.pools_above_residual() {
         return untestable(isolated);
     }
 
-    match triangular_weights(model, ems, &target, &candidates) {
+    // A mean square pooled above the residual mixes in components of the terms pooled
+    // into it, which breaks the containment order: solve the system in general then.
+    let solved = triangular_weights(model, ems, &target, &candidates)
+        .filter(|w| reproduces(ems, t, w))
+        .or_else(|| {
+            let every: Vec<usize> = (0..model.terms.len())
+                .filter(|&v| v != t && df[v] > 0)
+                .collect();
+            model
+                .pools_above_residual()
+                .then(|| general_weights(ems, &target, &every))
+                .flatten()
+                .filter(|w| reproduces(ems, t, w))
+        });
+    match solved {
         Some(denominator)
             if denominator.len() == 1 && denominator[0].1 == Rational::from_integer(1) =>
         {
@@ -140,7 +154,7 @@ pub fn error_term(model: &Model, ems: &Ems, df: &[u64], t: usize) -> ErrorTerm {
             denominator,
             isolated: Vec::new(),
         },
-        _ => untestable(Vec::new()),
+        _ => untestable(isolated),
     }
 }
 
@@ -185,6 +199,70 @@ fn triangular_weights(
         }
         weights.push((u, w));
     }
+    weights.sort_by_key(|(v, _)| *v);
+    Some(weights)
+}
+
+/// Solves Σ_V w_V E(MS_V) = target over the candidates by Gaussian elimination with
+/// exact rationals (free weights set to zero). `None` when no combination exists or the
+/// arithmetic would overflow.
+fn general_weights(
+    ems: &Ems,
+    target: &[(usize, Rational)],
+    candidates: &[usize],
+) -> Option<Vec<(usize, Rational)>> {
+    let mut components: Vec<usize> = target.iter().map(|(c, _)| *c).collect();
+    for &v in candidates {
+        components.extend(ems.rows[v].iter().map(|(c, _)| *c));
+    }
+    components.sort_unstable();
+    components.dedup();
+    let n = candidates.len();
+    // Augmented rows: one equation per component.
+    let mut m: Vec<Vec<Rational>> = components
+        .iter()
+        .map(|&c| {
+            let mut row: Vec<Rational> = candidates.iter().map(|&v| ems.coefficient(v, c)).collect();
+            row.push(
+                target
+                    .iter()
+                    .find(|(x, _)| *x == c)
+                    .map_or_else(Rational::zero, |(_, v)| *v),
+            );
+            row
+        })
+        .collect();
+    let mut pivots: Vec<(usize, usize)> = Vec::new();
+    let mut r = 0;
+    for col in 0..n {
+        let Some(p) = (r..m.len()).find(|&i| !m[i][col].is_zero()) else {
+            continue;
+        };
+        m.swap(r, p);
+        let lead = m[r][col];
+        for x in m[r].iter_mut() {
+            *x = x.checked_div(&lead)?;
+        }
+        for i in 0..m.len() {
+            if i != r && !m[i][col].is_zero() {
+                let f = m[i][col];
+                for j in 0..=n {
+                    let d = f.checked_mul(&m[r][j])?;
+                    m[i][j] = m[i][j].checked_sub(&d)?;
+                }
+            }
+        }
+        pivots.push((r, col));
+        r += 1;
+    }
+    if m[r..].iter().any(|row| !row[n].is_zero()) {
+        return None;
+    }
+    let mut weights: Vec<(usize, Rational)> = pivots
+        .iter()
+        .filter(|(row, _)| !m[*row][n].is_zero())
+        .map(|&(row, col)| (candidates[col], m[row][n]))
+        .collect();
     weights.sort_by_key(|(v, _)| *v);
     Some(weights)
 }

@@ -239,7 +239,7 @@ const CASES: &[Case] = &[
         why: "a factor is fixed or random, and the EMS depend on which" },
     Case { file: "levels-missing.toml", line: Line::At(5), phrase: "missing field `levels`",
         why: "df and EMS coefficients need every level count" },
-    Case { file: "replicates-missing.toml", line: Line::At(2), phrase: "missing field `replicates`",
+    Case { file: "replicates-missing.toml", line: Line::At(2), phrase: "has no `replicates`",
         why: "the residual's df need the replicates per cell" },
     Case { file: "empty-file.toml", line: Line::Any, phrase: "[layout]",
         why: "an empty document describes no layout" },

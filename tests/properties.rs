@@ -314,6 +314,10 @@ proptest! {
         let n = observations(&layout.levels);
         prop_assert_eq!(n, layout.observations());
         for (t, term) in model.terms.iter().enumerate() {
+            // A mean square pooled with omitted terms is held by the tableau property.
+            if model.pooled(t).next().is_some() && t != model.residual() {
+                continue;
+            }
             let cells = cells_of(term, &layout.levels);
             prop_assert_eq!(n % cells, 0);
             let expected = Rational::from_integer((n / cells) as i128);
@@ -430,15 +434,24 @@ proptest! {
         let df = model.df(&layout.levels);
         let n = observations(&layout.levels);
         prop_assert_eq!(df.iter().sum::<u64>(), n - 1);
-        let expected_residual = n / layout.levels.replicates * (layout.levels.replicates - 1)
-            + model.omitted.iter().map(|t| t.df(&layout.levels)).sum::<u64>();
-        prop_assert_eq!(df[model.residual()], expected_residual);
+        // Each omitted term's df join the term it is pooled into: the smallest random
+        // term containing it, else the residual.
+        let mut expected: Vec<u64> = model.terms.iter().map(|t| t.df(&layout.levels)).collect();
+        expected[model.residual()] = n / layout.levels.replicates * (layout.levels.replicates - 1);
+        for (o, &into) in model.omitted.iter().zip(&model.pooled_into) {
+            let o_subs = o.live | o.nest;
+            let t = model.terms[into];
+            prop_assert!(t.is_residual() || o_subs & !(t.live | t.nest) == 0);
+            prop_assert!(t.is_residual() || model.kinds[into] == Kind::Random);
+            expected[into] += o.df(&layout.levels);
+        }
+        prop_assert_eq!(&df, &expected);
 
         let all = all_structural_terms(&layout.structure);
         let mut df_of: BTreeMap<Mask, u64> = BTreeMap::new();
-        for (t, term) in model.terms.iter().enumerate() {
+        for term in &model.terms {
             if !term.is_residual() {
-                df_of.insert(term.live, df[t]);
+                df_of.insert(term.live, term.df(&layout.levels));
             }
         }
         for o in &model.omitted {
@@ -462,16 +475,36 @@ proptest! {
         let layout = build(&d);
         let (model, ems, _) = ems_of(&layout);
         let s = &layout.structure;
+        let df = model.df(&layout.levels);
         for (t, term) in model.terms.iter().enumerate() {
+            // A pooled mean square estimates the df-weighted mean of the expectations
+            // of the terms pooled into it (the term's own, and each omitted one's).
+            let mut pooled: Vec<(Term, u64)> = model
+                .pooled(t)
+                .map(|o| (model.omitted[o], model.omitted[o].df(&layout.levels)))
+                .collect();
+            let own = df[t] - pooled.iter().map(|(_, d)| d).sum::<u64>();
+            pooled.push((*term, own));
             for &(c, _) in &ems.rows[t] {
                 let u = model.terms[c];
-                prop_assert_eq!(
-                    (term.live | term.nest) & !(u.live | u.nest), 0,
+                prop_assert!(
+                    pooled.iter().any(|(p, _)| (p.live | p.nest) & !(u.live | u.nest) == 0),
                     "{} appears in E(MS[{}])", u.label(s), term.label(s)
                 );
             }
             for (c, u) in model.terms.iter().enumerate() {
-                let expected = tableau_coefficient(s, &layout.levels, term, u);
+                let expected = if pooled.len() == 1 || df[t] == 0 {
+                    tableau_coefficient(s, &layout.levels, term, u)
+                } else {
+                    let total = Rational::from_integer(df[t] as i128);
+                    pooled
+                        .iter()
+                        .map(|(p, d)| {
+                            let x = tableau_coefficient(s, &layout.levels, p, u);
+                            x * Rational::from_integer(*d as i128) / total
+                        })
+                        .fold(Rational::zero(), |a, b| a + b)
+                };
                 prop_assert_eq!(
                     ems.coefficient(t, c), expected,
                     "coefficient of {} in E(MS[{}]) under {:?}", u.label(s), term.label(s), s.convention

@@ -33,7 +33,8 @@ pub enum Place {
 pub struct Unit {
     pub name: String,
     pub place: Place,
-    /// The factors that pick out one unit: its term's subscripts.
+    /// The factors that pick out one unit: its term's subscripts (with `REPLICATE` for
+    /// the smallest unit, which the replicate picks out within a cell).
     pub ident: Mask,
     /// Treatments randomised to this unit.
     pub carries: Mask,
@@ -89,10 +90,19 @@ impl Units {
     }
 
     /// The name a term goes by when it is a unit with no factor of its own.
+    /// A treatment term keeps its treatment's name even when a unit coincides with it
+    /// (one chamber per light regime): that unit is not replicated.
     pub fn alias(&self, live: Mask) -> Option<&str> {
         self.list
             .iter()
-            .find(|u| u.live() == live && !matches!(u.place, Place::Factor(_)))
+            .find(|u| {
+                u.live() == live
+                    && match u.place {
+                        Place::Factor(_) => false,
+                        Place::Residual => true,
+                        Place::Term(_) => u.ident & !self.treatments != 0,
+                    }
+            })
             .map(|u| u.name.as_str())
     }
 
@@ -450,7 +460,9 @@ pub(super) fn build(
             ));
         }
         let r = count / combinations;
-        if r == 1 && carried.is_empty() {
+        // One per unit above with nothing randomised to it is that unit again; one per
+        // crossing of two units (a strip-plot's intersection plots) is a unit of its own.
+        if r == 1 && carried.is_empty() && parents[u].len() < 2 {
             let msg = if parents[u].is_empty() {
                 format!("unit \"{name}\": a count of 1 {per} with no treatment randomised to it does not vary: remove the unit")
             } else {
@@ -528,7 +540,7 @@ pub(super) fn build(
         list.push(Unit {
             name: unit_names[u].clone(),
             place,
-            ident: if u == bottom { all } else { ident[u] },
+            ident: if u == bottom { all | REPLICATE } else { ident[u] },
             carries,
             within: parents[u].clone(),
         });
