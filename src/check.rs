@@ -202,10 +202,9 @@ fn strata(a: &Analysis, goal: &Goal) -> Option<Strata> {
                     terms.push(model.terms[t].label(s));
                 }
             }
-            let below_carries = units
-                .list
-                .iter()
-                .any(|v| v.ident & unit.ident == unit.ident && v.ident != unit.ident && v.carries != 0);
+            let below_carries = units.list.iter().any(|v| {
+                v.ident & unit.ident == unit.ident && v.ident != unit.ident && v.carries != 0
+            });
             Stratum {
                 unit: unit.name.clone(),
                 count: units.count(u, &lv.per_factor, lv.replicates),
@@ -299,7 +298,6 @@ fn strata(a: &Analysis, goal: &Goal) -> Option<Strata> {
         pseudoreplication: pseudo,
     })
 }
-
 
 /// What the planning values leave out.
 pub(crate) fn planning_gaps(a: &Analysis, plan: &PlanningValues) -> PlanningGaps {

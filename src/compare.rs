@@ -114,6 +114,36 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<EditNote>), Error> {
             let layout = layout
                 .with_removals(removed)
                 .map_err(|(_, m)| usage(format!("--drop {name}: {m}")))?;
+            // A random layer that fixed treatments are nested in (or, in a layout of
+            // units, that treatments are randomised to) is their experimental unit:
+            // without it, smaller units stand in as replicates.
+            if s.factors[f].kind == crate::layout::Kind::Random {
+                let carried = match s.units.unit_of_term(1 << f) {
+                    Some(u) => u.carries,
+                    None if !s.units.declared() => s
+                        .factors
+                        .iter()
+                        .enumerate()
+                        .filter(|(i, g)| {
+                            s.factors[f].ancestors & (1 << i) != 0
+                                && g.kind == crate::layout::Kind::Fixed
+                        })
+                        .fold(0, |m, (i, _)| m | (1 << i)),
+                    None => 0,
+                };
+                if carried != 0 {
+                    notes.push(EditNote::Pseudoreplication {
+                        unit: name.clone(),
+                        treatments: s
+                            .factors
+                            .iter()
+                            .enumerate()
+                            .filter(|(i, _)| carried & (1 << i) != 0)
+                            .map(|(_, g)| g.name.clone())
+                            .collect(),
+                    });
+                }
+            }
             if !gone.is_empty() {
                 notes.push(EditNote::PlanningValuesGone {
                     factor: name.clone(),
@@ -215,13 +245,28 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<EditNote>), Error> {
                         }
                     }
                     "omit" => {
-                        let mut omitted = Vec::new();
+                        // What the units imply (the smallest unit's interaction, the
+                        // interactions additivity pools) stays; the list replaces `omit`.
+                        let units = &layout.structure.units;
+                        let mut omitted: Vec<Mask> = units
+                            .merged
+                            .into_iter()
+                            .chain(units.pooled.iter().copied())
+                            .collect();
                         for t in value.split(';').map(str::trim).filter(|t| !t.is_empty()) {
                             let live = term_key(t)?;
                             if live.count_ones() < 2 || live & REPLICATE != 0 {
                                 return Err(bad(format!("\"{t}\" is not an interaction")));
                             }
-                            omitted.push(live);
+                            if units.pooled.contains(&live) {
+                                notes.push(EditNote::AlreadyPooled {
+                                    term: t.to_string(),
+                                });
+                                continue;
+                            }
+                            if !omitted.contains(&live) {
+                                omitted.push(live);
+                            }
                         }
                         layout.structure.omitted = omitted;
                     }
@@ -346,12 +391,21 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<EditNote>), Error> {
             for fac in &mut factors {
                 fac.ancestors = 0;
             }
-            let structure = crate::layout::Structure::new(
+            let renested = factors
+                .iter()
+                .zip(&side.layout.structure.factors)
+                .any(|(a, b)| a.within != b.within || a.kind != b.kind);
+            let mut structure = crate::layout::Structure::new(
                 factors,
                 layout.structure.omitted.clone(),
                 layout.structure.convention,
             )
             .map_err(bad)?;
+            // The units describe the nesting as the file gave it; nested differently, the
+            // layout is one of factors.
+            if !renested {
+                structure.units = layout.structure.units.clone();
+            }
             let mut rebuilt =
                 Layout::new(layout.name.clone(), structure, layout.levels.clone()).map_err(bad)?;
             rebuilt.sums_of_squares = layout.sums_of_squares;
@@ -402,6 +456,14 @@ pub enum EditNote {
     NowRandom { term: String },
     /// One side is unbalanced, so both are computed under the unrestricted model.
     BothUnrestricted,
+    /// A dropped layer was the unit these treatments were applied to: without it they
+    /// are tested over smaller units, which are not replicates of theirs.
+    Pseudoreplication {
+        unit: String,
+        treatments: Vec<String>,
+    },
+    /// An interaction to omit that unit-treatment additivity already pools.
+    AlreadyPooled { term: String },
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
@@ -412,6 +474,8 @@ pub enum Status {
     Stronger,
     Lost,
     Gained,
+    /// Tested, but over smaller units than those the treatment is applied to.
+    Pseudoreplicated,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -543,6 +607,27 @@ pub fn compare(
                 Some(side_test(u)),
                 covers(other, u),
             ));
+        }
+    }
+    // A test over smaller units than the treatment's own is not stronger: it is
+    // pseudoreplicated (Hurlbert 1984).
+    let moved: Vec<&String> = notes
+        .iter()
+        .filter_map(|n| match n {
+            EditNote::Pseudoreplication { treatments, .. } => Some(treatments),
+            _ => None,
+        })
+        .flatten()
+        .collect();
+    for tc in &mut terms {
+        let named = o.pseudoreplication().iter().any(|p| p.term == tc.label);
+        let dropped_unit = o
+            .terms
+            .iter()
+            .find(|u| u.label == tc.label)
+            .is_some_and(|u| u.live.iter().any(|n| moved.contains(&n)));
+        if (named || dropped_unit) && testable(&tc.other) {
+            tc.status = Status::Pseudoreplicated;
         }
     }
     let total = |r: &CheckReport| r.cost.as_ref().map(|c| c.total);

@@ -244,11 +244,8 @@ impl Model {
     /// Whether every term pooled into `t` estimates σ² alone, as the residual does.
     fn pooled_rows_are_sigma(&self, t: usize) -> bool {
         let residual = self.residual();
-        self.pooled(t).all(|o| {
-            self.omitted_rows[o]
-                .iter()
-                .all(|e| e.component == residual)
-        })
+        self.pooled(t)
+            .all(|o| self.omitted_rows[o].iter().all(|e| e.component == residual))
     }
 }
 
@@ -269,13 +266,9 @@ impl Ems {
 fn pool_target(terms: &[Term], kinds: &[Kind], omitted: &Term) -> usize {
     let residual = terms.len() - 1;
     let containing: Vec<usize> = (0..residual)
-        .filter(|&u| {
-            kinds[u] == Kind::Random && omitted.subscripts() & !terms[u].subscripts() == 0
-        })
+        .filter(|&u| kinds[u] == Kind::Random && omitted.subscripts() & !terms[u].subscripts() == 0)
         .collect();
-    let below = |a: usize, b: usize| {
-        a != b && terms[b].subscripts() & !terms[a].subscripts() == 0
-    };
+    let below = |a: usize, b: usize| a != b && terms[b].subscripts() & !terms[a].subscripts() == 0;
     let smallest: Vec<usize> = containing
         .iter()
         .copied()

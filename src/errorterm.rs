@@ -222,7 +222,8 @@ fn general_weights(
     let mut m: Vec<Vec<Rational>> = components
         .iter()
         .map(|&c| {
-            let mut row: Vec<Rational> = candidates.iter().map(|&v| ems.coefficient(v, c)).collect();
+            let mut row: Vec<Rational> =
+                candidates.iter().map(|&v| ems.coefficient(v, c)).collect();
             row.push(
                 target
                     .iter()

@@ -444,7 +444,11 @@ impl CostModel {
                 CostLine {
                     term: live,
                     label: if live == REPLICATE {
-                        structure.units.alias(REPLICATE).unwrap_or("residual").to_string()
+                        structure
+                            .units
+                            .alias(REPLICATE)
+                            .unwrap_or("residual")
+                            .to_string()
                     } else {
                         term_of(structure, live).label(structure)
                     },

@@ -6,8 +6,8 @@
 
 use crate::layout::{Layout, Levels, Structure};
 use crate::planning::{CostModel, PlanningValues};
-pub use crate::term::remap_mask;
 use crate::term::Mask;
+pub use crate::term::remap_mask;
 
 /// Leaves out factor `f`: the factors nested in it move up to its nests; priors, effects
 /// and unit costs of terms that involve it go with it. Returns the new layout and

@@ -55,11 +55,18 @@ fn expect(text: &str, cases: &[(&str, &str, f64)]) {
                 "{term} under {convention:?}"
             );
         }
-        let strata = report.strata.as_ref().expect("a layout of units has strata");
+        let strata = report
+            .strata
+            .as_ref()
+            .expect("a layout of units has strata");
         let total: u64 = strata.strata.iter().map(|s| s.df).sum();
         assert_eq!(total, report.observations - 1, "strata df add up");
         assert!(report.pseudoreplication().is_empty());
-        assert_eq!(report.needing_attention().count(), 0, "nothing needs attention");
+        assert_eq!(
+            report.needing_attention().count(),
+            0,
+            "nothing needs attention"
+        );
     }
 }
 
@@ -97,15 +104,18 @@ fn randomised_complete_block() {
 /// randomised blocks (from memory); Hurlbert (1984), Ecological Monographs 54:187-211.
 #[test]
 fn randomised_block_with_subsamples() {
-    let text = format!(
-        "{RCBD}\n[[unit]]\nname = \"plant\"\nwithin = \"plot\"\ncount = 3\n"
-    );
+    let text = format!("{RCBD}\n[[unit]]\nname = \"plant\"\nwithin = \"plot\"\ncount = 3\n");
     expect(&text, &[("variety", "plot", 15.0)]);
     let report = run(&text, Convention::Restricted);
     let plant = report.terms.iter().find(|t| t.residual).unwrap();
     assert_eq!((plant.label.as_str(), plant.df), ("plant", 48));
     let strata = report.strata.unwrap();
-    assert!(strata.strata.iter().any(|s| s.unit == "plant" && s.subsample));
+    assert!(
+        strata
+            .strata
+            .iter()
+            .any(|s| s.unit == "plant" && s.subsample)
+    );
 }
 
 /// Completely randomised, five tanks per diet, three fish per tank: diet over tanks
@@ -340,7 +350,10 @@ randomised_to = "pot"
     let report = run(text, Convention::Restricted);
     let p = report.pseudoreplication();
     assert_eq!(p.len(), 1, "{p:?}");
-    assert_eq!((p[0].term.as_str(), p[0].unit.as_str()), ("light", "chamber"));
+    assert_eq!(
+        (p[0].term.as_str(), p[0].unit.as_str()),
+        ("light", "chamber")
+    );
     assert_eq!(
         p[0].cause,
         emsplan::findings::PseudoCause::OneUnitPerLevel {
@@ -350,7 +363,10 @@ randomised_to = "pot"
         }
     );
     // Six chambers, two per light, fix it.
-    let fixed = run(&text.replace("count = 3\n", "count = 6\n"), Convention::Restricted);
+    let fixed = run(
+        &text.replace("count = 3\n", "count = 6\n"),
+        Convention::Restricted,
+    );
     assert!(fixed.pseudoreplication().is_empty());
     assert_eq!(test_of(&fixed, "light"), ("chamber(light)".into(), 3.0));
 }
@@ -426,7 +442,9 @@ fn bad_unit_layouts_are_refused_with_their_line() {
     ];
     for (text, line, words) in cases {
         let spec = emsplan::spec::parse(text).expect("parses");
-        let err = Layout::from_spec(&spec, text).expect_err("refused").to_string();
+        let err = Layout::from_spec(&spec, text)
+            .expect_err("refused")
+            .to_string();
         assert!(err.starts_with(&format!("line {line}: ")), "{err}");
         assert!(err.contains(words), "{err}");
         assert!(!err.contains('\n'));
@@ -452,7 +470,10 @@ fn unit_layout() -> impl Strategy<Value = String> {
                 // Replicate the largest unit so every stratum has an error.
                 let r = if u == 0 { per[u].max(2) } else { per[u] };
                 let r = if carried[u] == 1 { r.max(2) } else { r };
-                text.push_str(&format!("[[unit]]\nname = \"u{u}\"\ncount = {}\n", r * carried[u]));
+                text.push_str(&format!(
+                    "[[unit]]\nname = \"u{u}\"\ncount = {}\n",
+                    r * carried[u]
+                ));
                 if u > 0 {
                     text.push_str(&format!("within = \"u{}\"\n", u - 1));
                 }

@@ -299,10 +299,7 @@ impl Layout {
             Error::invalid(line, m)
         })?;
         if units.declared() {
-            let additive = layout_spec
-                .additive
-                .as_ref()
-                .is_none_or(|a| *a.get_ref());
+            let additive = layout_spec.additive.as_ref().is_none_or(|a| *a.get_ref());
             structure.units = units;
             structure.units.additive = additive;
             structure.omitted.extend(structure.units.merged);
@@ -437,47 +434,47 @@ impl Layout {
 /// The factors of a file of `[[factor]]` tables, with their level counts.
 fn factors_from_spec(spec: &Spec, text: &str) -> Result<(Vec<Factor>, Vec<u64>), Error> {
     let at = |span: std::ops::Range<usize>| Some(spec::line_of(text, span.start));
-        if spec.factor.is_empty() {
+    if spec.factor.is_empty() {
+        return Err(Error::invalid(
+            None,
+            "the layout has no factors: add at least one [[factor]] table with name, kind and levels",
+        ));
+    }
+
+    // Names first, so that `within` can refer to factors declared later.
+    let mut names: Vec<String> = Vec::new();
+    for f in &spec.factor {
+        let name = f.get_ref().name.get_ref().trim().to_string();
+        let line = at(f.get_ref().name.span());
+        check_name(&name).map_err(|m| Error::invalid(line, m))?;
+        if names.contains(&name) {
             return Err(Error::invalid(
-                None,
-                "the layout has no factors: add at least one [[factor]] table with name, kind and levels",
+                line,
+                format!("factor \"{name}\" is declared twice: give each factor its own name"),
             ));
         }
+        names.push(name);
+    }
+    if names.len() > MAX_FACTORS {
+        return Err(Error::invalid(
+            None,
+            format!(
+                "the layout has {} factors; emsplan handles at most {MAX_FACTORS}",
+                names.len()
+            ),
+        ));
+    }
+    let known = names.join(", ");
 
-        // Names first, so that `within` can refer to factors declared later.
-        let mut names: Vec<String> = Vec::new();
-        for f in &spec.factor {
-            let name = f.get_ref().name.get_ref().trim().to_string();
-            let line = at(f.get_ref().name.span());
-            check_name(&name).map_err(|m| Error::invalid(line, m))?;
-            if names.contains(&name) {
-                return Err(Error::invalid(
-                    line,
-                    format!("factor \"{name}\" is declared twice: give each factor its own name"),
-                ));
-            }
-            names.push(name);
-        }
-        if names.len() > MAX_FACTORS {
-            return Err(Error::invalid(
-                None,
-                format!(
-                    "the layout has {} factors; emsplan handles at most {MAX_FACTORS}",
-                    names.len()
-                ),
-            ));
-        }
-        let known = names.join(", ");
-
-        let mut factors = Vec::new();
-        let mut per_factor = Vec::new();
-        for (i, f) in spec.factor.iter().enumerate() {
-            let f = f.get_ref();
-            let name = &names[i];
-            let mut within: Mask = 0;
-            for w in &f.within {
-                let wname = w.get_ref().trim();
-                let j = names.iter().position(|n| n == wname).ok_or_else(|| {
+    let mut factors = Vec::new();
+    let mut per_factor = Vec::new();
+    for (i, f) in spec.factor.iter().enumerate() {
+        let f = f.get_ref();
+        let name = &names[i];
+        let mut within: Mask = 0;
+        for w in &f.within {
+            let wname = w.get_ref().trim();
+            let j = names.iter().position(|n| n == wname).ok_or_else(|| {
                     Error::invalid(
                         at(w.span()),
                         format!(
@@ -485,54 +482,54 @@ fn factors_from_spec(spec: &Spec, text: &str) -> Result<(Vec<Factor>, Vec<u64>),
                         ),
                     )
                 })?;
-                if j == i {
+            if j == i {
+                return Err(Error::invalid(
+                    at(w.span()),
+                    format!(
+                        "factor \"{name}\" is nested in itself: remove \"{wname}\" from its `within`"
+                    ),
+                ));
+            }
+            within |= 1 << j;
+        }
+        let levels = positive(*f.levels.get_ref(), || {
+            format!("factor \"{name}\": levels must be a whole number of at least 1")
+        })
+        .map_err(|m| Error::invalid(at(f.levels.span()), m))?;
+        per_factor.push(levels);
+        let kind = match f.kind.get_ref() {
+            KindSpec::Fixed => Kind::Fixed,
+            KindSpec::Random => Kind::Random,
+        };
+        let population = match &f.population {
+            None => None,
+            Some(p) => {
+                if kind == Kind::Fixed {
                     return Err(Error::invalid(
-                        at(w.span()),
+                        at(p.span()),
                         format!(
-                            "factor \"{name}\" is nested in itself: remove \"{wname}\" from its `within`"
+                            "factor \"{name}\" is fixed, so it has no population: remove `population` or make it random"
                         ),
                     ));
                 }
-                within |= 1 << j;
+                Some(
+                    positive(*p.get_ref(), || {
+                        format!(
+                            "factor \"{name}\": population must be a whole number of at least 1"
+                        )
+                    })
+                    .map_err(|m| Error::invalid(at(p.span()), m))?,
+                )
             }
-            let levels = positive(*f.levels.get_ref(), || {
-                format!("factor \"{name}\": levels must be a whole number of at least 1")
-            })
-            .map_err(|m| Error::invalid(at(f.levels.span()), m))?;
-            per_factor.push(levels);
-            let kind = match f.kind.get_ref() {
-                KindSpec::Fixed => Kind::Fixed,
-                KindSpec::Random => Kind::Random,
-            };
-            let population = match &f.population {
-                None => None,
-                Some(p) => {
-                    if kind == Kind::Fixed {
-                        return Err(Error::invalid(
-                            at(p.span()),
-                            format!(
-                                "factor \"{name}\" is fixed, so it has no population: remove `population` or make it random"
-                            ),
-                        ));
-                    }
-                    Some(
-                        positive(*p.get_ref(), || {
-                            format!(
-                                "factor \"{name}\": population must be a whole number of at least 1"
-                            )
-                        })
-                        .map_err(|m| Error::invalid(at(p.span()), m))?,
-                    )
-                }
-            };
-            factors.push(Factor {
-                name: name.clone(),
-                kind,
-                within,
-                ancestors: 0,
-                population,
-            });
-        }
+        };
+        factors.push(Factor {
+            name: name.clone(),
+            kind,
+            within,
+            ancestors: 0,
+            population,
+        });
+    }
     Ok((factors, per_factor))
 }
 

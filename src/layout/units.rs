@@ -159,7 +159,11 @@ impl Units {
             list,
             treatments: keep(self.treatments),
             additive: self.additive,
-            pooled: self.pooled.iter().filter_map(|&m| remap_mask(m, f)).collect(),
+            pooled: self
+                .pooled
+                .iter()
+                .filter_map(|&m| remap_mask(m, f))
+                .collect(),
             merged: self.merged.and_then(|m| remap_mask(m, f)),
         }
     }
@@ -188,7 +192,9 @@ impl Units {
 
     /// The unit a treatment factor is randomised to.
     pub fn unit_carrying(&self, factor: usize) -> Option<usize> {
-        self.list.iter().position(|u| u.carries & (1 << factor) != 0)
+        self.list
+            .iter()
+            .position(|u| u.carries & (1 << factor) != 0)
     }
 }
 
@@ -211,10 +217,7 @@ pub(super) struct Built {
 }
 
 /// Builds the model of a file of `[[unit]]` and `[[treatment]]` tables.
-pub(super) fn build(
-    spec: &crate::spec::Spec,
-    text: &str,
-) -> Result<Built, crate::error::Error> {
+pub(super) fn build(spec: &crate::spec::Spec, text: &str) -> Result<Built, crate::error::Error> {
     use crate::error::Error;
     use crate::spec::{KindSpec, line_of};
 
@@ -321,8 +324,8 @@ pub(super) fn build(
     // Units in an order where parents come first (Kahn); what is left is a cycle.
     let mut order: Vec<usize> = Vec::new();
     while order.len() < n {
-        let next = (0..n)
-            .find(|&u| !order.contains(&u) && parents[u].iter().all(|p| order.contains(p)));
+        let next =
+            (0..n).find(|&u| !order.contains(&u) && parents[u].iter().all(|p| order.contains(p)));
         match next {
             Some(u) => order.push(u),
             None => {
@@ -373,7 +376,9 @@ pub(super) fn build(
             [] => {
                 return Err(Error::invalid(
                     line,
-                    format!("treatment \"{name}\": randomised_to names no unit (known: {known_units})"),
+                    format!(
+                        "treatment \"{name}\": randomised_to names no unit (known: {known_units})"
+                    ),
                 ));
             }
             many => {
@@ -434,7 +439,9 @@ pub(super) fn build(
             format!("unit \"{name}\": count must be a whole number of at least 1")
         })
         .map_err(|m| Error::invalid(line, m))?;
-        let carried: Vec<usize> = (0..carried_by.len()).filter(|&t| carried_by[t] == u).collect();
+        let carried: Vec<usize> = (0..carried_by.len())
+            .filter(|&t| carried_by[t] == u)
+            .collect();
         let combinations: u64 = carried
             .iter()
             .try_fold(1u64, |m, &t| m.checked_mul(treatment_levels[t]))
@@ -464,9 +471,13 @@ pub(super) fn build(
         // crossing of two units (a strip-plot's intersection plots) is a unit of its own.
         if r == 1 && carried.is_empty() && parents[u].len() < 2 {
             let msg = if parents[u].is_empty() {
-                format!("unit \"{name}\": a count of 1 {per} with no treatment randomised to it does not vary: remove the unit")
+                format!(
+                    "unit \"{name}\": a count of 1 {per} with no treatment randomised to it does not vary: remove the unit"
+                )
             } else {
-                format!("unit \"{name}\": one {per} with no treatment randomised to it is the same unit as the one it is within: remove it, or give it a count above 1")
+                format!(
+                    "unit \"{name}\": one {per} with no treatment randomised to it is the same unit as the one it is within: remove it, or give it a count above 1"
+                )
             };
             return Err(Error::invalid(line, msg));
         }
@@ -540,7 +551,11 @@ pub(super) fn build(
         list.push(Unit {
             name: unit_names[u].clone(),
             place,
-            ident: if u == bottom { all | REPLICATE } else { ident[u] },
+            ident: if u == bottom {
+                all | REPLICATE
+            } else {
+                ident[u]
+            },
             carries,
             within: parents[u].clone(),
         });

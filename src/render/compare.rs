@@ -21,6 +21,16 @@ pub fn edit_note(n: &EditNote) -> String {
         EditNote::NowRandom { term } => format!(
             "{term} is now random: its effect no longer applies (give a standard deviation with --set sd.{term}=...)"
         ),
+        EditNote::Pseudoreplication { unit, treatments } => format!(
+            "{} {} applied to whole {unit}s; without the {unit} layer {} tested over smaller units, as if each were an independent {unit}: that is pseudoreplication (Hurlbert 1984), and the test is valid only if {} truly randomised to each smaller unit on its own",
+            super::and_list(treatments),
+            if treatments.len() == 1 { "is" } else { "are" },
+            if treatments.len() == 1 { "it is" } else { "they are" },
+            if treatments.len() == 1 { "it is" } else { "they are" },
+        ),
+        EditNote::AlreadyPooled { term } => format!(
+            "{term} is already pooled into its stratum's error, since units and treatments are taken as additive; omitting it changes nothing"
+        ),
         EditNote::BothUnrestricted => "one side is unbalanced, so both sides are computed under the unrestricted model (the restricted model is not defined for unbalanced layouts)".into(),
     }
 }
@@ -73,6 +83,7 @@ fn status(s: Status) -> &'static str {
         Status::Stronger => "stronger",
         Status::Lost => "lost its test",
         Status::Gained => "gained a test",
+        Status::Pseudoreplicated => "pseudoreplicated",
     }
 }
 
@@ -266,18 +277,30 @@ pub fn verdict_text(c: &Comparison) -> String {
         .map(|t| t.label.as_str())
         .collect();
     let all_testable = focus.iter().all(|t| testable(&t.other));
+    let pseudo: Vec<&str> = focus
+        .iter()
+        .filter(|t| t.status == Status::Pseudoreplicated)
+        .map(|t| t.label.as_str())
+        .collect();
+    // Every drawback goes in one "but" clause.
+    let mut but: Vec<String> = Vec::new();
     let mut sentence = format!("{what} {money}");
-    if lost.is_empty() {
+    if !pseudo.is_empty() {
+        but.push(format!(
+            "{} would be tested over smaller units than {} applied to (pseudoreplication), so {} not valid",
+            super::and_list(&pseudo.iter().map(|x| x.to_string()).collect::<Vec<_>>()),
+            if pseudo.len() == 1 { "it is" } else { "they are" },
+            if pseudo.len() == 1 { "that test is" } else { "those tests are" },
+        ));
+    }
+    if !lost.is_empty() {
+        but.push(format!("{} can no longer be tested", lost.join(", ")));
+    } else if pseudo.is_empty() {
         if all_testable {
             sentence.push_str(" and keeps every term that matters testable");
         } else {
             sentence.push_str(" and loses no test");
         }
-    } else {
-        sentence.push_str(&format!(
-            ", but {} can no longer be tested",
-            lost.join(", ")
-        ));
     }
     if !gained.is_empty() {
         sentence.push_str(&format!("; {} becomes testable", gained.join(", ")));
@@ -330,11 +353,12 @@ pub fn verdict_text(c: &Comparison) -> String {
             ))
         })
         .collect();
-    if !weaker.is_empty() {
-        sentence.push_str(&format!(", but {}", weaker.join("; ")));
+    but.extend(weaker);
+    if !but.is_empty() {
+        sentence.push_str(&format!(", but {}", but.join("; ")));
     }
     if !stronger.is_empty() {
-        let joiner = if weaker.is_empty() { ", and " } else { "; " };
+        let joiner = if but.is_empty() { ", and " } else { "; " };
         sentence.push_str(&format!("{joiner}{}", stronger.join("; ")));
     }
     if !moved.is_empty() {

@@ -490,7 +490,11 @@ pub fn interest_note(report: &CheckReport) -> String {
         .filter(|t| t.of_interest)
         .map(|t| t.label.clone())
         .collect();
-    let others = report.terms.iter().filter(|t| !t.of_interest && !t.residual).count();
+    let others = report
+        .terms
+        .iter()
+        .filter(|t| !t.of_interest && !t.residual)
+        .count();
     if others == 0 {
         return format!("Terms of interest: all of them ({}).", and_list(&interest));
     }
@@ -508,7 +512,12 @@ pub fn strata_lines(s: &Strata) -> Vec<String> {
             let per = if st.within.is_empty() {
                 format!("{} in all", st.count)
             } else {
-                format!("{} per {}, {} in all", st.count, st.within.join(" and "), st.total)
+                format!(
+                    "{} per {}, {} in all",
+                    st.count,
+                    st.within.join(" and "),
+                    st.total
+                )
             };
             let what = if st.smallest && st.subsample {
                 ", subsamples: the units measured"
