@@ -222,7 +222,7 @@ fn strata(a: &Analysis, goal: &Goal) -> Option<Strata> {
                     _ => None,
                 },
                 smallest: unit.place == crate::layout::Place::Residual,
-                subsample: unit.carries == 0 && !below_carries && {
+                subsample: unit.carries == 0 && unit.within.len() < 2 && !below_carries && {
                     // Below a unit that carries a treatment.
                     units.list.iter().any(|v| {
                         v.carries != 0 && unit.ident & v.ident == v.ident && v.ident != unit.ident
@@ -271,7 +271,7 @@ fn strata(a: &Analysis, goal: &Goal) -> Option<Strata> {
                 }
                 Some(PseudoCause::UnitOmitted { unit_term })
             }
-            Some(o) if model.kinds[o] == Kind::Fixed => {
+            Some(o) if a.df[o] == 0 && matches!(unit.place, crate::layout::Place::Factor(_)) => {
                 let count = units.count(u, &lv.per_factor, lv.replicates);
                 Some(PseudoCause::OneUnitPerLevel {
                     count,

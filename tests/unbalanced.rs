@@ -113,7 +113,9 @@ fn every_shipped_balanced_problem_is_reproduced() {
             continue;
         }
         let (l, _, _) = Layout::from_file(&path).expect("shipped problems are valid");
-        if !l.is_balanced() {
+        // The synthesis pools omitted terms into the residual only; a layout that pools
+        // into a stratum above it is checked by the exact engine alone.
+        if !l.is_balanced() || Model::new(&l.structure).pools_above_residual() {
             continue;
         }
         assert_reproduces_balanced(&l, &path.display().to_string());
@@ -207,6 +209,8 @@ proptest! {
     /// expected mean squares (unrestricted convention), for either kind of sums of squares.
     #[test]
     fn random_balanced_layouts_are_reproduced(l in layout_draw()) {
+        // Pooling into a stratum above the residual is the exact engine's alone.
+        prop_assume!(!Model::new(&l.structure).pools_above_residual());
         assert_reproduces_balanced(&l, &format!("{:?}", l.levels));
     }
 }

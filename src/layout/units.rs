@@ -452,6 +452,14 @@ pub(super) fn build(spec: &crate::spec::Spec, text: &str) -> Result<Built, crate
             let p: Vec<&str> = parents[u].iter().map(|&p| unit_names[p].as_str()).collect();
             format!("per {}", p.join(" and "))
         };
+        if count % combinations != 0 && parents[u].len() >= 2 {
+            return Err(Error::invalid(
+                line,
+                format!(
+                    "unit \"{name}\": {count} {per} is fewer than the {combinations} treatment combinations randomised to it; a row-column design such as a Latin square (each treatment once in every row and column) is not a complete crossing, and emsplan cannot check it yet"
+                ),
+            ));
+        }
         if count % combinations != 0 {
             let what: Vec<String> = carried
                 .iter()
@@ -492,6 +500,7 @@ pub(super) fn build(spec: &crate::spec::Spec, text: &str) -> Result<Built, crate
     let mut unit_factor: Vec<Option<usize>> = vec![None; n];
     let mut ident: Vec<Mask> = vec![0; n];
     let mut anc: Vec<Mask> = Vec::new();
+    let mut unit_mask: Mask = 0;
     for &u in &order {
         let above = parents[u].iter().fold(0, |m, &p| m | ident[p]);
         let mut carries: Mask = 0;
@@ -509,7 +518,12 @@ pub(super) fn build(spec: &crate::spec::Spec, text: &str) -> Result<Built, crate
             per_factor.push(treatment_levels[t]);
         }
         let mut id = above | carries;
-        if per_combination[u] > 1 && u != bottom {
+        // A unit with one member per treatment combination and no unit above it is not
+        // replicated: it keeps a factor of its own, with one level, so that its variance
+        // stays in the expected mean squares (and the treatment has no test).
+        let unreplicated = per_combination[u] == 1 && (above | carries) & unit_mask == 0;
+        if (per_combination[u] > 1 || unreplicated) && u != bottom {
+            unit_mask |= 1 << factors.len();
             unit_factor[u] = Some(factors.len());
             id |= 1 << factors.len();
             factors.push(Factor {
@@ -557,6 +571,31 @@ pub(super) fn build(spec: &crate::spec::Spec, text: &str) -> Result<Built, crate
                 ident[u]
             },
             carries,
+            within: parents[u].clone(),
+        });
+    }
+    // Where a unit divides the crossing of two units (strip-plot intersections), the
+    // crossing is itself a unit, whether or not it is declared: the interaction of the
+    // treatments on the crossed units is estimated on it.
+    for u in 0..n {
+        let is_the_crossing = per_combination[u] == 1 && list[u].carries == 0;
+        if parents[u].len() < 2 || is_the_crossing {
+            continue;
+        }
+        let crossing = parents[u].iter().fold(0, |m, &p| m | ident[p]);
+        if list.iter().any(|x| x.ident == crossing) {
+            continue;
+        }
+        let name = parents[u]
+            .iter()
+            .map(|&p| unit_names[p].as_str())
+            .collect::<Vec<_>>()
+            .join(" x ");
+        list.push(Unit {
+            name,
+            place: Place::Term(minimal(crossing)),
+            ident: crossing,
+            carries: 0,
             within: parents[u].clone(),
         });
     }

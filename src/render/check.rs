@@ -1,6 +1,6 @@
 //! Rendering of `check` results.
 
-use super::words::{self, CAUTION, LEGEND, ems as ems_text, tested_over};
+use super::words::{self, CAUTION, ems as ems_text, tested_over};
 use super::{Format, Page, Width, csv_table, json, markdown_table, num};
 use crate::errorterm::Verdict;
 use crate::findings::{BothReport, CheckReport, TermReport, TestReport};
@@ -223,7 +223,7 @@ fn write(report: &CheckReport, page: Page) -> String {
         if let Page::Text(_) = page {
             out.push('\n');
             out.push_str(&page.paragraph(if report.strata.is_some() {
-                "Every term of interest has an exact F test over the units it was randomised to."
+                "Every term of interest has an exact F test within its own stratum."
             } else {
                 "Every term with df has an exact F test."
             }));
@@ -345,7 +345,7 @@ pub fn render_both(b: &BothReport, format: Format, width: Width) -> String {
                     b.restricted.observations
                 )),
                 page.table(header, rows()),
-                page.paragraph(LEGEND),
+                page.paragraph(words::legend(&b.restricted)),
                 page.paragraph(&summary)
             )
         }

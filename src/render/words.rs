@@ -498,10 +498,31 @@ pub fn interest_note(report: &CheckReport) -> String {
     if others == 0 {
         return format!("Terms of interest: all of them ({}).", and_list(&interest));
     }
-    format!(
-        "Terms of interest: {}. The others (units, blocks, their interactions) are shown with their df and E(MS) but draw no advice; name the terms that matter in [layout] of_interest to change this.",
-        and_list(&interest)
-    )
+    let nuisance_only = report
+        .terms
+        .iter()
+        .all(|t| t.of_interest || t.residual || !is_treatment_term(report, t));
+    if nuisance_only {
+        format!(
+            "Terms of interest: {}. The others (units, blocks, their interactions) are shown with their df and E(MS) but draw no advice; name the terms that matter in [layout] of_interest to change this.",
+            and_list(&interest)
+        )
+    } else {
+        format!(
+            "Terms of interest ([layout] of_interest): {}. The other terms are shown with their df and E(MS) but draw no advice.",
+            and_list(&interest)
+        )
+    }
+}
+
+/// Whether a term involves treatments only (no unit).
+fn is_treatment_term(report: &CheckReport, t: &TermReport) -> bool {
+    report.strata.as_ref().is_some_and(|st| {
+        t.live
+            .iter()
+            .chain(&t.within)
+            .all(|n| st.strata.iter().any(|u| u.carries.contains(n)))
+    })
 }
 
 /// The units and strata in words: one line per unit, largest first.
@@ -527,7 +548,12 @@ pub fn strata_lines(s: &Strata) -> Vec<String> {
                 ""
             };
             let carries = if st.carries.is_empty() {
-                if st.subsample {
+                if st.within.len() >= 2 {
+                    format!(
+                        "the crossing of {}; no treatment is randomised to them",
+                        and_list(&st.within)
+                    )
+                } else if st.subsample || st.smallest {
                     "no treatment is randomised to them".to_string()
                 } else {
                     "no treatment is randomised to them (a block)".to_string()

@@ -150,10 +150,13 @@ impl Simulator {
     pub fn new(layout: &Layout, plan: &PlanningValues) -> Result<Simulator, Error> {
         let s = &layout.structure;
         if !plan.has_priors() {
-            return Err(Error::invalid(
-                None,
-                "simulate draws data from the planning values: add an [sd] table with at least `residual`, the standard deviation within cells (see docs/planning.md)",
-            ));
+            let message = match s.units.alias(crate::term::REPLICATE) {
+                Some(name) => format!(
+                    "simulate draws data from the planning values: add an [sd] table with at least `{name}`, the standard deviation between {name}s (see docs/planning.md)"
+                ),
+                None => "simulate draws data from the planning values: add an [sd] table with at least `residual`, the standard deviation within cells (see docs/planning.md)".to_string(),
+            };
+            return Err(Error::invalid(None, message));
         }
         let mut full = layout.clone();
         full.removed.clear();
@@ -274,7 +277,10 @@ impl Simulator {
                                 .collect(),
                         })
                         .collect();
-                    let restricted = s.convention == Convention::Restricted;
+                    // A unit's effects are the unit's: not centred over the treatments
+                    // it carries, as the expected mean squares have it (ems::Model).
+                    let restricted = s.convention == Convention::Restricted
+                        && !s.units.is_unit_term(term.live);
                     let centre = dims
                         .iter()
                         .enumerate()
