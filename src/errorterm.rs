@@ -244,12 +244,12 @@ fn general_weights(
         for x in m[r].iter_mut() {
             *x = x.checked_div(&lead)?;
         }
-        for i in 0..m.len() {
-            if i != r && !m[i][col].is_zero() {
-                let f = m[i][col];
-                for j in 0..=n {
-                    let d = f.checked_mul(&m[r][j])?;
-                    m[i][j] = m[i][j].checked_sub(&d)?;
+        let pivot_row = m[r].clone();
+        for (i, row) in m.iter_mut().enumerate() {
+            if i != r && !row[col].is_zero() {
+                let f = row[col];
+                for (x, p) in row.iter_mut().zip(&pivot_row) {
+                    *x = x.checked_sub(&f.checked_mul(p)?)?;
                 }
             }
         }

@@ -237,17 +237,18 @@ fn parse_factor_set(structure: &Structure, part: &str, whole: &str) -> Result<Ma
             ));
         }
         let i = structure.factor_index(name).ok_or_else(|| {
-            let units: Vec<&str> = structure.units.list.iter().map(|u| u.name.as_str()).collect();
+            let units: Vec<&str> = structure
+                .units
+                .list
+                .iter()
+                .map(|u| u.name.as_str())
+                .collect();
             let known = if units.is_empty() {
                 structure.known_names()
             } else {
                 format!("{}; units: {}", structure.known_names(), units.join(", "))
             };
-            if whole.trim() == name {
-                format!("\"{name}\" is not a term of the layout (factors: {known})")
-            } else {
-                format!("\"{whole}\" names \"{name}\", which is not a factor (known: {known})")
-            }
+            format!("\"{whole}\" names \"{name}\", which is not a factor (known: {known})")
         })?;
         if mask & (1 << i) != 0 {
             return Err(format!("\"{whole}\" names \"{name}\" twice"));

@@ -279,8 +279,8 @@ impl Simulator {
                         .collect();
                     // A unit's effects are the unit's: not centred over the treatments
                     // it carries, as the expected mean squares have it (ems::Model).
-                    let restricted = s.convention == Convention::Restricted
-                        && !s.units.is_unit_term(term.live);
+                    let restricted =
+                        s.convention == Convention::Restricted && !s.units.is_unit_term(term.live);
                     let centre = dims
                         .iter()
                         .enumerate()
