@@ -121,20 +121,20 @@ pub fn error_term(model: &Model, ems: &Ems, df: &[u64], t: usize) -> ErrorTerm {
         denominator: Vec::new(),
         isolated,
     };
-    if !isolated.is_empty() && !model.pools_above_residual() {
+    let pooled_above = model.pools_above_residual();
+    if !isolated.is_empty() && !pooled_above {
         return untestable(isolated);
     }
 
     // A mean square pooled above the residual mixes in components of the terms pooled
     // into it, which breaks the containment order: solve the system in general then.
     let solved = triangular_weights(model, ems, &target, &candidates)
-        .filter(|w| reproduces(ems, t, w))
+        .filter(|w| !pooled_above || reproduces(ems, t, w))
         .or_else(|| {
             let every: Vec<usize> = (0..model.terms.len())
                 .filter(|&v| v != t && df[v] > 0)
                 .collect();
-            model
-                .pools_above_residual()
+            pooled_above
                 .then(|| general_weights(ems, &target, &every))
                 .flatten()
                 .filter(|w| reproduces(ems, t, w))
