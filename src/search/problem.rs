@@ -195,7 +195,26 @@ impl Problem {
         for (key, value) in &search.levels {
             let line = at(value.span());
             let v = value.get_ref();
-            let name = key.trim();
+            let key_name = key.trim();
+            // In a layout of units, the smallest unit's count per combination of what is
+            // above it is the replicates; a unit with one member per combination has no
+            // count of its own to search.
+            let bottom = s.units.alias(crate::term::REPLICATE);
+            let name = if Some(key_name) == bottom && s.factor_index(key_name).is_none() {
+                "replicates"
+            } else {
+                key_name
+            };
+            if let Some(u) = s.units.by_name(key_name)
+                && matches!(u.place, crate::layout::Place::Term(_))
+            {
+                return Err(Error::invalid(
+                    line,
+                    format!(
+                        "[search.levels] \"{key_name}\" has one member per combination of the treatments randomised to it, so it has no count of its own to search; the search does not yet change which units are replicated: give it a count of two per combination in the file to search over it"
+                    ),
+                ));
+            }
             let factor = s.factor_index(name);
             if factor.is_some() && name == "replicates" {
                 return Err(Error::invalid(
