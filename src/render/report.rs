@@ -277,8 +277,11 @@ pub fn markdown(report: &Report, figure_prefix: &str) -> (String, Vec<(String, S
     let mut figures = Vec::new();
     let _ = writeln!(m, "# {}\n\n> **Caution.** {CAUTION}\n", r.title);
     m.push_str("## The layout\n\n");
-    for line in &r.description {
-        let _ = writeln!(m, "{line}\n");
+    // A layout of units is described in the check's section below, strata and all.
+    if r.check.strata.is_none() {
+        for line in &r.description {
+            let _ = writeln!(m, "{line}\n");
+        }
     }
     let name = format!("{figure_prefix}layout.svg");
     let _ = writeln!(
@@ -695,7 +698,16 @@ fn view(r: &Report) -> View<'_> {
                 there: over(&d.there),
             })
             .collect(),
-        description: describe(layout),
+        description: match &r.check.strata {
+            // A layout of units is described by its units, as the experimenter plans it.
+            Some(st) => {
+                let mut lines = words::strata_lines(st);
+                lines.extend(words::additivity_note(st));
+                lines.push(words::interest_note(&r.check));
+                lines
+            }
+            None => describe(layout),
+        },
         factors,
         diagram: svg::layout_diagram(&nodes, "Nesting and crossing of the factors"),
         key_terms: r
