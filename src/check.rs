@@ -453,10 +453,12 @@ pub(crate) fn repair_report(layout: &Layout, r: &Repair) -> RepairReport {
             within: names(s.factors[factor].within),
             from: layout.levels.per_factor[factor],
             to,
+            unit: s.units.is_unit_term(1 << factor),
         },
         Change::Replicates { to } => ChangeReport::Replicates {
             from: layout.levels.replicates,
             to,
+            unit: s.units.alias(crate::term::REPLICATE).map(str::to_string),
         },
         Change::Within { factor, within } => ChangeReport::Within {
             factor: s.factors[factor].name.clone(),

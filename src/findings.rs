@@ -325,9 +325,16 @@ pub enum ChangeReport {
         within: Vec<String>,
         from: u64,
         to: u64,
+        /// Whether the factor is a unit of a layout of units (more chambers, blocks).
+        unit: bool,
     },
-    /// More replicates per cell.
-    Replicates { from: u64, to: u64 },
+    /// More replicates per cell; in a layout of units, more of the smallest unit.
+    Replicates {
+        from: u64,
+        to: u64,
+        #[serde(skip_serializing_if = "Option::is_none")]
+        unit: Option<String>,
+    },
     /// A different nesting of a factor.
     Within {
         factor: String,

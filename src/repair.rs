@@ -118,9 +118,10 @@ pub fn repairs(layout: &Layout, plan: &PlanningValues, goal: &Goal, live: Mask) 
     if let Some(rep) = (r + 1..=r + MAX_EXTRA).find_map(|to| judge(Change::Replicates { to })) {
         found.push(rep);
     }
-    // A different nesting of a random factor: one nest more or one fewer.
+    // A different nesting of a random factor: one nest more or one fewer. Not in a
+    // layout of units, where the nesting is where the treatments were randomised.
     for (i, f) in s.factors.iter().enumerate() {
-        if f.kind != Kind::Random {
+        if f.kind != Kind::Random || s.units.declared() {
             continue;
         }
         for j in 0..s.factors.len() {
@@ -137,9 +138,11 @@ pub fn repairs(layout: &Layout, plan: &PlanningValues, goal: &Goal, live: Mask) 
     if let Some(t) = base.term(live) {
         for &(c, _) in &base.ems[t] {
             let u = base.model.terms[c];
+            // A unit's own variation is never assumed away: that is pseudoreplication.
             if c != t
                 && !u.is_residual()
                 && u.live.count_ones() >= 2
+                && !s.units.is_unit_term(u.live)
                 && let Some(rep) = judge(Change::Omit { live: u.live })
             {
                 found.push(rep);

@@ -287,6 +287,23 @@ pub fn change(c: &ChangeReport) -> String {
             within,
             from,
             to,
+            unit: true,
+        } => {
+            if within.is_empty() {
+                format!("use {to} {factor}s (now {from})")
+            } else {
+                format!(
+                    "use {to} {factor}s for each {} (now {from})",
+                    factor_list(within)
+                )
+            }
+        }
+        ChangeReport::Levels {
+            factor,
+            within,
+            from,
+            to,
+            unit: false,
         } => {
             if within.is_empty() {
                 format!("use {to} levels of {factor} (now {from})")
@@ -297,8 +314,21 @@ pub fn change(c: &ChangeReport) -> String {
                 )
             }
         }
-        ChangeReport::Replicates { from, to } => {
+        ChangeReport::Replicates {
+            from,
+            to,
+            unit: None,
+        } => {
             format!("take {to} replicates per cell (now {from})")
+        }
+        ChangeReport::Replicates {
+            from,
+            to,
+            unit: Some(unit),
+        } => {
+            format!(
+                "use {to} {unit}s for each combination of the units and treatments above them (now {from})"
+            )
         }
         ChangeReport::Within { factor, from, to } => {
             let added: Vec<String> = to.iter().filter(|n| !from.contains(n)).cloned().collect();
