@@ -513,3 +513,102 @@ proptest! {
         }
     }
 }
+
+/// Any file of units and treatments, however wrong, is either refused in one line or
+/// checked: never a panic. Names, parents, counts and targets are drawn at random,
+/// unknown names and cycles included.
+fn any_unit_file() -> impl Strategy<Value = String> {
+    let names = ["a", "b", "c", "d"];
+    (
+        proptest::collection::vec(
+            (
+                0usize..4,
+                0u64..5,
+                proptest::option::of(0usize..5),
+                0usize..3,
+            ),
+            1..=4,
+        ),
+        proptest::collection::vec((0u64..4, 0usize..6, any::<bool>()), 0..=3),
+        any::<bool>(),
+    )
+        .prop_map(move |(mut units, mut treatments, tidy)| {
+            // Half the draws are tidied into layouts that can hold: parents declared
+            // earlier, levels of two or more, counts a multiple of what each unit carries.
+            if tidy {
+                let n = units.len();
+                for t in &mut treatments {
+                    t.0 = t.0.max(2);
+                    t.1 %= n;
+                }
+                for (k, u) in units.iter_mut().enumerate() {
+                    u.2 = if k == 0 { None } else { Some(u.0 % k) };
+                    let carried: u64 = treatments
+                        .iter()
+                        .filter(|t| t.1 == k)
+                        .map(|t| t.0)
+                        .product();
+                    u.1 = u.1.clamp(1, 3) * carried;
+                    if u.1 == 1 && k > 0 && u.3 != 2 {
+                        u.1 = 2;
+                    }
+                    if u.3 == 2 && k < 2 {
+                        u.3 = 0;
+                    }
+                    if u.3 == 2 {
+                        // The crossing of the two units declared just before.
+                        u.2 = Some(k - 2);
+                    }
+                }
+            }
+            let mut text = String::new();
+            for (k, &(_, count, parent, second)) in units.iter().enumerate() {
+                text.push_str(&format!(
+                    "[[unit]]\nname = \"{}\"\ncount = {count}\n",
+                    names[k]
+                ));
+                match (parent, second) {
+                    (Some(p), 2) => text.push_str(&format!(
+                        "within = [\"{}\", \"{}\"]\n",
+                        names.get(p).unwrap_or(&"zz"),
+                        names[(p + 1) % 4]
+                    )),
+                    (Some(p), _) => {
+                        text.push_str(&format!("within = \"{}\"\n", names.get(p).unwrap_or(&"zz")))
+                    }
+                    (None, _) => {}
+                }
+            }
+            for (k, &(levels, unit, random)) in treatments.iter().enumerate() {
+                text.push_str(&format!(
+                    "[[treatment]]\nname = \"t{k}\"\nlevels = {levels}\nrandomised_to = \"{}\"\n{}",
+                    names.get(unit).unwrap_or(&"zz"),
+                    if random { "kind = \"random\"\n" } else { "" }
+                ));
+            }
+            text
+        })
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(400))]
+
+    #[test]
+    fn unit_files_are_refused_in_one_line_or_checked(text in any_unit_file()) {
+        let spec = emsplan::spec::parse(&text).expect("the drawn text is TOML");
+        match Layout::from_spec(&spec, &text) {
+            Err(e) => prop_assert!(!e.to_string().contains('\n'), "{e}"),
+            Ok(layout) => {
+                for convention in [Convention::Restricted, Convention::Unrestricted] {
+                    let plan = PlanningValues::from_spec(&spec, &text, &layout).unwrap();
+                    let goal = Goal::from_spec(&spec, &text, &layout).unwrap();
+                    let report = check_with_goal(&layout, convention, &plan, &goal);
+                    if let Ok(r) = report {
+                        let total: u64 = r.strata.as_ref().unwrap().strata.iter().map(|s| s.df).sum();
+                        prop_assert_eq!(total, r.observations - 1, "{}", text);
+                    }
+                }
+            }
+        }
+    }
+}
