@@ -493,6 +493,9 @@ pub struct SideTest {
 #[derive(Debug, Clone, Serialize)]
 pub struct TermComparison {
     pub label: String,
+    /// Whether the term is the residual (under whatever name the smallest unit gives it).
+    #[serde(skip)]
+    pub residual: bool,
     pub base: Option<SideTest>,
     pub other: Option<SideTest>,
     pub status: Status,
@@ -594,6 +597,7 @@ pub fn compare(
         let matching = o.terms.iter().find(|u| key(u) == key(t));
         terms.push(judge(
             t.label.clone(),
+            t.residual,
             Some(side_test(t)),
             matching.map(side_test),
             covers(base, t) || matching.is_some_and(|u| covers(other, u)),
@@ -603,6 +607,7 @@ pub fn compare(
         if !b.terms.iter().any(|t| key(t) == key(u)) {
             terms.push(judge(
                 u.label.clone(),
+                u.residual,
                 None,
                 Some(side_test(u)),
                 covers(other, u),
@@ -659,6 +664,7 @@ pub fn testable(t: &Option<SideTest>) -> bool {
 
 fn judge(
     label: String,
+    residual: bool,
     base: Option<SideTest>,
     other: Option<SideTest>,
     must_test: bool,
@@ -696,6 +702,7 @@ fn judge(
     };
     TermComparison {
         label,
+        residual,
         base,
         other,
         status,

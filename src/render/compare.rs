@@ -90,7 +90,7 @@ fn status(s: Status) -> &'static str {
 fn rows(c: &Comparison) -> Vec<Vec<String>> {
     c.terms
         .iter()
-        .filter(|t| t.label != "residual")
+        .filter(|t| !t.residual)
         .map(|t| {
             let [bo, bd, bp] = side(&t.base);
             let [oo, od, op] = side(&t.other);
@@ -169,7 +169,7 @@ fn csv_rows(c: &Comparison) -> Vec<Vec<String>> {
     };
     c.terms
         .iter()
-        .filter(|t| t.label != "residual")
+        .filter(|t| !t.residual)
         .map(|t| {
             let [bo, bd, bp] = side(&t.base);
             let [oo, od, op] = side(&t.other);
