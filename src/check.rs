@@ -173,18 +173,14 @@ fn strata(a: &Analysis, goal: &Goal) -> Option<Strata> {
     let names = |list: &[usize]| -> Vec<String> {
         list.iter().map(|&u| units.list[u].name.clone()).collect()
     };
-    let factor_names = |m: Mask| -> Vec<String> {
-        s.factors
-            .iter()
-            .enumerate()
-            .filter(|(i, _)| m & (1 << i) != 0)
-            .map(|(_, f)| f.name.clone())
-            .collect()
-    };
+    let factor_names =
+        |m: Mask| -> Vec<String> { s.names(m).iter().map(|n| n.to_string()).collect() };
     // Largest units first: by how many factors pick out one unit.
     let mut order: Vec<usize> = (0..units.list.len()).collect();
     order.sort_by_key(|&u| (units.list[u].ident.count_ones(), u));
     let stratum_of = |t: usize| units.stratum(model.terms[t].subscripts());
+    // The unit's own term in the model (none when it is assumed absent).
+    let own_term = |u: &crate::layout::Unit| model.terms.iter().position(|t| t.live == u.live());
     let list = order
         .iter()
         .map(|&u| {
@@ -192,7 +188,7 @@ fn strata(a: &Analysis, goal: &Goal) -> Option<Strata> {
             let in_it: Vec<usize> = (0..model.terms.len())
                 .filter(|&t| stratum_of(t) == Some(u))
                 .collect();
-            let own = model.terms.iter().position(|t| t.live == unit.live());
+            let own = own_term(unit);
             let mut terms: Vec<String> = Vec::new();
             if let Some(o) = own {
                 terms.push(model.terms[o].label(s));
@@ -262,8 +258,7 @@ fn strata(a: &Analysis, goal: &Goal) -> Option<Strata> {
                     .collect()
             })
             .unwrap_or_default();
-        let own = model.terms.iter().position(|x| x.live == unit.live());
-        let cause = match own {
+        let cause = match own_term(unit) {
             None if unit.place != crate::layout::Place::Residual => {
                 let unit_term = crate::layout::term_of(s, unit.live()).interaction_label(s);
                 if s.units.merged == Some(unit.live()) {
@@ -439,14 +434,7 @@ fn shortfall(goal: &Goal, o: &Outcome) -> Shortfall {
 /// A repair as data: the change with its values before and after, and what it gives.
 pub(crate) fn repair_report(layout: &Layout, r: &Repair) -> RepairReport {
     let s = &layout.structure;
-    let names = |m: Mask| -> Vec<String> {
-        s.factors
-            .iter()
-            .enumerate()
-            .filter(|(i, _)| m & (1 << i) != 0)
-            .map(|(_, f)| f.name.clone())
-            .collect()
-    };
+    let names = |m: Mask| -> Vec<String> { s.names(m).iter().map(|n| n.to_string()).collect() };
     let change = match r.change {
         Change::Levels { factor, to } => ChangeReport::Levels {
             factor: s.factors[factor].name.clone(),

@@ -134,13 +134,7 @@ pub fn apply(side: &Side, edit: &Edit) -> Result<(Side, Vec<EditNote>), Error> {
                 if carried != 0 {
                     notes.push(EditNote::Pseudoreplication {
                         unit: name.clone(),
-                        treatments: s
-                            .factors
-                            .iter()
-                            .enumerate()
-                            .filter(|(i, _)| carried & (1 << i) != 0)
-                            .map(|(_, g)| g.name.clone())
-                            .collect(),
+                        treatments: s.names(carried).iter().map(|n| n.to_string()).collect(),
                     });
                 }
             }

@@ -155,12 +155,23 @@ impl Model {
     /// Degrees of freedom of every term; the residual gets cells × (replicates - 1), and
     /// each term the df of the omitted interactions pooled into it.
     pub fn df(&self, levels: &Levels) -> Vec<u64> {
-        let mut df: Vec<u64> = self.terms.iter().map(|t| t.df(levels)).collect();
-        df[self.residual()] = levels.cells() * (levels.replicates - 1);
+        let mut df: Vec<u64> = (0..self.terms.len())
+            .map(|t| self.own_df(t, levels))
+            .collect();
         for (o, &t) in self.omitted.iter().zip(&self.pooled_into) {
             df[t] += o.df(levels);
         }
         df
+    }
+
+    /// A term's df before anything is pooled into it: the term's own, or for the
+    /// residual cells × (replicates - 1).
+    pub fn own_df(&self, t: usize, levels: &Levels) -> u64 {
+        if t == self.residual() {
+            levels.cells() * (levels.replicates - 1)
+        } else {
+            self.terms[t].df(levels)
+        }
     }
 
     /// Numeric expected mean squares at these level counts. Components whose coefficient
@@ -208,11 +219,7 @@ impl Model {
                 if pooled.is_empty() || t == self.residual() && self.pooled_rows_are_sigma(t) {
                     continue;
                 }
-                let own = if t == self.residual() {
-                    levels.cells() * (levels.replicates - 1)
-                } else {
-                    self.terms[t].df(levels)
-                };
+                let own = self.own_df(t, levels);
                 let total = Rational::from_integer(df[t] as i128);
                 if total.is_zero() {
                     continue;

@@ -126,6 +126,16 @@ impl Structure {
         (1u32 << self.factors.len()) - 1
     }
 
+    /// Names of the factors in a set, in declaration order.
+    pub fn names(&self, mask: Mask) -> Vec<&str> {
+        self.factors
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| mask & (1 << i) != 0)
+            .map(|(_, f)| f.name.as_str())
+            .collect()
+    }
+
     /// Names of the factors, for error messages.
     pub fn known_names(&self) -> String {
         self.factors

@@ -52,11 +52,11 @@ impl Term {
 
     /// Names of the live factors, in declaration order.
     pub fn live_names<'a>(&self, structure: &'a Structure) -> Vec<&'a str> {
-        names(structure, self.live)
+        structure.names(self.live)
     }
 
     pub fn nest_names<'a>(&self, structure: &'a Structure) -> Vec<&'a str> {
-        names(structure, self.nest)
+        structure.names(self.nest)
     }
 
     /// `cultivar x bench(light)`; `residual` for the residual. A term that is a unit
@@ -139,16 +139,6 @@ pub fn remap_mask(mask: Mask, dropped: usize) -> Option<Mask> {
     Some(low | high | replicate)
 }
 
-fn names(structure: &Structure, mask: Mask) -> Vec<&str> {
-    structure
-        .factors
-        .iter()
-        .enumerate()
-        .filter(|(i, _)| mask & (1 << i) != 0)
-        .map(|(_, f)| f.name.as_str())
-        .collect()
-}
-
 /// Every term of the full model, main effects first, then by order and declaration;
 /// omitted interactions are left out. The residual is not included.
 pub fn model_terms(structure: &Structure) -> Vec<Term> {
@@ -203,7 +193,7 @@ pub fn parse_term_label(structure: &Structure, text: &str) -> Result<Term, Strin
     }
     for (i, f) in structure.factors.iter().enumerate() {
         if live & (1 << i) != 0 && f.ancestors & live != 0 {
-            let inner = names(structure, f.ancestors & live).join(", ");
+            let inner = structure.names(f.ancestors & live).join(", ");
             return Err(format!(
                 "\"{text}\" is not a term: \"{}\" is nested in {inner}, so they cannot be crossed",
                 f.name

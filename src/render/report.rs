@@ -729,15 +729,7 @@ fn kind_name(k: Kind) -> &'static str {
 }
 
 fn names(layout: &Layout, mask: u32) -> String {
-    layout
-        .structure
-        .factors
-        .iter()
-        .enumerate()
-        .filter(|(i, _)| mask & (1 << i) != 0)
-        .map(|(_, f)| f.name.as_str())
-        .collect::<Vec<_>>()
-        .join(", ")
+    layout.structure.names(mask).join(", ")
 }
 
 /// The layout in words: one sentence per factor, then the replication.

@@ -481,11 +481,7 @@ pub fn pseudoreplication(p: &Pseudoreplication) -> String {
             within,
             fix_count,
         } => {
-            let per = if within.is_empty() {
-                "in all".to_string()
-            } else {
-                format!("per {}", within.join(" and "))
-            };
+            let per = per_unit(within);
             let test = if p.tested_over.is_empty() {
                 over
             } else {
@@ -555,6 +551,15 @@ fn is_treatment_term(report: &CheckReport, t: &TermReport) -> bool {
     })
 }
 
+/// `in all` for a top unit, `per row and column` for one within others.
+fn per_unit(within: &[String]) -> String {
+    if within.is_empty() {
+        "in all".to_string()
+    } else {
+        format!("per {}", within.join(" and "))
+    }
+}
+
 /// The units and strata in words: one line per unit, largest first.
 pub fn strata_lines(s: &Strata) -> Vec<String> {
     s.strata
@@ -563,12 +568,7 @@ pub fn strata_lines(s: &Strata) -> Vec<String> {
             let per = if st.within.is_empty() {
                 format!("{} in all", st.count)
             } else {
-                format!(
-                    "{} per {}, {} in all",
-                    st.count,
-                    st.within.join(" and "),
-                    st.total
-                )
+                format!("{} {}, {} in all", st.count, per_unit(&st.within), st.total)
             };
             let what = if st.smallest && st.subsample {
                 ", subsamples: the units measured"

@@ -282,16 +282,12 @@ impl Screen {
 
     /// df of term `t` of the model (the residual: cells × (replicates - 1) + pooled).
     pub fn df(&self, t: usize, levels: &Levels) -> u64 {
-        let own = if t == self.model.residual() {
-            levels.cells() * (levels.replicates - 1)
-        } else {
-            self.model.terms[t].df(levels)
-        };
-        own + self
-            .model
-            .pooled(t)
-            .map(|o| self.model.omitted[o].df(levels))
-            .sum::<u64>()
+        self.model.own_df(t, levels)
+            + self
+                .model
+                .pooled(t)
+                .map(|o| self.model.omitted[o].df(levels))
+                .sum::<u64>()
     }
 
     /// E(MS) of term `t` under the planning values: Σ coefficient × θ over its row, with
@@ -302,11 +298,7 @@ impl Screen {
             return own;
         }
         // A pooled mean square: the df-weighted mean of the pooled expectations.
-        let mut df = if t == self.model.residual() {
-            levels.cells() * (levels.replicates - 1)
-        } else {
-            self.model.terms[t].df(levels)
-        } as f64;
+        let mut df = self.model.own_df(t, levels) as f64;
         let mut total = own * df;
         for o in self.model.pooled(t) {
             let d = self.model.omitted[o].df(levels) as f64;

@@ -72,7 +72,7 @@ impl Variant {
                 if m == 0 {
                     format!("{name} crossed with the rest")
                 } else {
-                    format!("{name} within {}", names(base, m).join(", "))
+                    format!("{name} within {}", base.names(m).join(", "))
                 }
             })
             .collect();
@@ -99,15 +99,6 @@ pub fn get(levels: &Levels, target: Target) -> u64 {
         Target::Factor(i) => levels.per_factor[i],
         Target::Replicates => levels.replicates,
     }
-}
-
-fn names(s: &Structure, m: Mask) -> Vec<&str> {
-    s.factors
-        .iter()
-        .enumerate()
-        .filter(|(i, _)| m & (1 << i) != 0)
-        .map(|(_, f)| f.name.as_str())
-        .collect()
 }
 
 /// The structures of a problem, and the picks that gave no layout (with why).
@@ -183,7 +174,7 @@ fn build(
                 format!(
                     "{} within {}: {e}",
                     base.structure.factors[c.factor].name,
-                    names(&base.structure, m).join(", ")
+                    base.structure.names(m).join(", ")
                 )
             })?;
             nesting.push((c.factor, m));

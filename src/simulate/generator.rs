@@ -146,6 +146,17 @@ pub struct Scratch {
     null_y: Vec<f64>,
 }
 
+impl RandomTerm {
+    /// Each cell's effect index: fixed, or drawn per data set for a finite population.
+    fn cell_map<'a>(&'a self, maps: &'a [Vec<u32>]) -> &'a [u32] {
+        if self.finite.is_empty() {
+            &self.map
+        } else {
+            &maps[self.map_slot]
+        }
+    }
+}
+
 impl Simulator {
     pub fn new(layout: &Layout, plan: &PlanningValues) -> Result<Simulator, Error> {
         let s = &layout.structure;
@@ -450,12 +461,7 @@ impl Simulator {
         x.cell_mean.copy_from_slice(&self.fixed_sum);
         for r in &self.random {
             let e = &x.effects[r.offset..r.offset + r.size];
-            let map = if r.finite.is_empty() {
-                &r.map
-            } else {
-                &x.maps[r.map_slot]
-            };
-            for (m, &i) in x.cell_mean.iter_mut().zip(map) {
+            for (m, &i) in x.cell_mean.iter_mut().zip(r.cell_map(&x.maps)) {
                 *m += e[i as usize];
             }
         }
@@ -502,12 +508,7 @@ impl Simulator {
             Own::Random(r) => {
                 let r = &self.random[r];
                 let e = &x.effects[r.offset..r.offset + r.size];
-                let map = if r.finite.is_empty() {
-                    &r.map
-                } else {
-                    &x.maps[r.map_slot]
-                };
-                for (t, &i) in x.null_totals.iter_mut().zip(map) {
+                for (t, &i) in x.null_totals.iter_mut().zip(r.cell_map(&x.maps)) {
                     *t -= reps * e[i as usize];
                 }
             }
