@@ -193,6 +193,32 @@ pub struct SearchSpec {
     pub levels: BTreeMap<String, Spanned<Vec<i64>>>,
     #[serde(default)]
     pub choice: Vec<Spanned<ChoiceSpec>>,
+    /// `[[search.placement]]`: for a treatment, the units it may be randomised to.
+    #[serde(default)]
+    pub placement: Vec<Spanned<PlacementSpec>>,
+    /// Units that the layout may do without (their members merge into the unit above).
+    #[serde(default)]
+    pub optional_units: Vec<Spanned<String>>,
+    /// `[[search.limit]]`: at most so many units, in all or per member of a larger unit.
+    #[serde(default)]
+    pub limit: Vec<Spanned<LimitSpec>>,
+}
+
+/// The units one treatment may be randomised to.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PlacementSpec {
+    pub treatment: Spanned<String>,
+    pub randomised_to: Spanned<Vec<String>>,
+}
+
+/// A capacity: at most `at_most` units of one kind, in all or per member of `per`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LimitSpec {
+    pub unit: Spanned<String>,
+    pub at_most: Spanned<i64>,
+    pub per: Option<Spanned<String>>,
 }
 
 /// Structural alternatives for one factor: nesting choices, or an optional layer.

@@ -74,7 +74,8 @@ fn every_shipped_problem_runs_in_every_format() {
 
 /// The JSON contract: best with cost, replicates, factors (name, levels, within) and tests
 /// (label, verdict, denominator, denominator_df, power, min_detectable); candidates,
-/// frontier, examined and the rejected counts by reason.
+/// frontier, examined and the rejected counts by reason (candidates over the budget or
+/// beyond a capacity limit are not examined).
 #[test]
 fn json_follows_the_contract() {
     for path in shipped() {
@@ -106,11 +107,12 @@ fn json_follows_the_contract() {
         let examined = v["examined"].as_u64().expect("examined");
         let r = &v["rejected"];
         let budget = r["budget"].as_u64().expect("budget");
+        let limit = r["limit"].as_u64().expect("limit");
         for key in ["untestable", "min_df", "power"] {
             assert!(r[key].is_u64(), "{p}: rejected.{key}");
         }
         assert_eq!(
-            examined + budget,
+            examined + budget + limit,
             v["space"].as_u64().expect("space"),
             "{p}"
         );

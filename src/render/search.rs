@@ -28,6 +28,15 @@ fn opt(x: Option<f64>, f: fn(f64) -> String) -> String {
 /// `recipe 3, storage 2, day 3, assessor 2, 1 replicate`: the level counts of a
 /// candidate, each factor's within one of its nests.
 fn levels(c: &CandidateReport) -> String {
+    if !c.units.is_empty() {
+        // A layout of units: each unit's count per member of the unit it is within.
+        return c
+            .units
+            .iter()
+            .map(|u| format!("{} {}", u.name, u.count))
+            .collect::<Vec<_>>()
+            .join(", ");
+    }
     let mut parts: Vec<String> = c
         .factors
         .iter()
@@ -145,6 +154,7 @@ fn constraints_line(r: &SearchReport) -> String {
         Some(b) => parts.push(format!("budget {}", number(b))),
         None => parts.push("no budget".into()),
     }
+    parts.extend(c.limits.iter().map(super::search_words::limit));
     format!("Constraints: {}.", parts.join("; "))
 }
 
@@ -166,8 +176,13 @@ fn counts_line(r: &SearchReport) -> String {
             }
         );
     }
+    let limit = if r.constraints.limits.is_empty() {
+        String::new()
+    } else {
+        format!(", {} beyond the limits", r.rejected.limit)
+    };
     format!(
-        "{} candidates in {structures}: {} examined, {} over the budget, {} feasible.",
+        "{} candidates in {structures}: {} examined, {} over the budget{limit}, {} feasible.",
         r.space, r.examined, r.rejected.budget, r.feasible
     )
 }
@@ -258,6 +273,10 @@ fn rejection_text(x: &RejectionReport, c: &Constraints) -> String {
             c.target_power.map_or("-".into(), |p| p.to_string()),
             per_term(cheapest, |t| opt(t.power, probability))
         ),
+        Rejection::Limit => format!(
+            "Beyond a capacity limit ({candidates}). The cheapest: {layout}; {}.",
+            super::search_words::failure(cheapest, Rejection::Limit, c)
+        ),
     }
 }
 
@@ -307,6 +326,13 @@ fn write(r: &SearchReport, page: Page) -> String {
                     w.structure
                 )));
             }
+        }
+    }
+    if !r.arrangements.is_empty() {
+        out.push_str(&page.heading("Where the treatments go"));
+        let best = r.best.as_ref().map(|b| b.cost);
+        for a in &r.arrangements {
+            out.push_str(&page.item(&super::search_words::arrangement(a, best, &r.constraints)));
         }
     }
     if r.candidates.len() > 1 {

@@ -4,7 +4,8 @@ use super::num;
 use super::words;
 use crate::search::Rejection;
 use crate::search::report::{
-    Binding, CandidateReport, Constraints, MustTestReport, Notes, RejectionReport, SearchReport,
+    Arrangement, Binding, CandidateReport, Constraints, LimitReport, MustTestReport, Notes,
+    RejectionReport, SearchReport,
 };
 
 /// The caution at the end of every search.
@@ -18,6 +19,9 @@ pub fn caution() -> String {
 /// "light 3; bench 3 in each light (9 in all); cultivar 4; 2 replicates in each of the
 /// 108 cells: 216 observations; cost 4810".
 pub fn description(c: &CandidateReport) -> String {
+    if !c.units.is_empty() {
+        return unit_description(c);
+    }
     let mut parts: Vec<String> = c
         .factors
         .iter()
@@ -47,6 +51,172 @@ pub fn description(c: &CandidateReport) -> String {
     format!("{}; cost {}", parts.join("; "), num(c.cost))
 }
 
+/// "chamber 6 in all; shelf 2 per chamber (12 in all); pot 4 per shelf (48 in all);
+/// light on chamber, cultivar on pot; cost 4810": a candidate of a layout of units.
+fn unit_description(c: &CandidateReport) -> String {
+    let mut parts: Vec<String> = c
+        .units
+        .iter()
+        .map(|u| {
+            let sub = if u.subsample { ", subsamples" } else { "" };
+            if u.within.is_empty() {
+                format!("{} {} in all{sub}", u.name, u.count)
+            } else {
+                format!(
+                    "{} {} per {} ({} in all{sub})",
+                    u.name,
+                    u.count,
+                    u.within.join(" and "),
+                    u.in_all
+                )
+            }
+        })
+        .collect();
+    let placed: Vec<String> = c
+        .units
+        .iter()
+        .flat_map(|u| u.carries.iter().map(move |t| format!("{t} on {}", u.name)))
+        .collect();
+    if !placed.is_empty() {
+        parts.push(placed.join(", "));
+    }
+    format!("{}; cost {}", parts.join("; "), num(c.cost))
+}
+
+/// "chamber: at most 6 in all", "plant: at most 5 per tray".
+pub fn limit(l: &LimitReport) -> String {
+    match &l.per {
+        None => format!("{}: at most {} in all", l.unit, l.at_most),
+        Some(p) => format!("{}: at most {} per {p}", l.unit, l.at_most),
+    }
+}
+
+/// Why a candidate fails, as a clause after its description: "light cannot be tested:
+/// ...", "light has power 0.412 (target 0.8)".
+pub fn failure(c: &CandidateReport, reason: Rejection, p: &Constraints) -> String {
+    let test = c.failing.and_then(|k| c.tests.get(k));
+    match (reason, test) {
+        (Rejection::Limit, _) => match &c.beyond {
+            Some(l) => format!(
+                "its {} count is {} {}, above the limit of {}",
+                l.unit,
+                l.needed,
+                l.per
+                    .as_ref()
+                    .map_or("in all".to_string(), |x| format!("per {x}")),
+                l.at_most
+            ),
+            None => "it is beyond a capacity limit".into(),
+        },
+        (Rejection::Budget, _) => format!(
+            "it is over the budget of {} by {}",
+            p.budget.map_or("none".into(), num),
+            num(c.cost - p.budget.unwrap_or(0.0))
+        ),
+        (Rejection::Untestable, Some(t)) => {
+            format!("{} cannot be tested: {}", t.label, must_test_reason(t))
+        }
+        (Rejection::MinDf, Some(t)) => match t.denominator_df {
+            Some(df) => format!(
+                "{} is tested with only {} denominator df (min_df {})",
+                t.label,
+                num(df),
+                p.min_df.map_or("-".into(), num)
+            ),
+            None => format!(
+                "{} has only a quasi-F test, whose Satterthwaite df are unknown without an [sd] table, so min_df cannot be met",
+                t.label
+            ),
+        },
+        (Rejection::Power, Some(t)) => format!(
+            "{} has power {} (target {})",
+            t.label,
+            t.power.map_or("unknown".into(), |x| format!("{x:.3}")),
+            p.target_power.unwrap_or(0.0)
+        ),
+        (r, None) => format!("it is rejected ({})", rejection(r)),
+    }
+}
+
+/// How each must-test term is tested in a candidate: "light over chamber, 4 den. df,
+/// power 0.83".
+pub fn tests_in_brief(c: &CandidateReport) -> String {
+    let parts: Vec<String> = c
+        .tests
+        .iter()
+        .map(|t| {
+            if !t.verdict.is_testable() {
+                return format!("{} cannot be tested", t.label);
+            }
+            let over = if t.denominator.is_empty() {
+                "nothing".to_string()
+            } else {
+                super::combination(&t.denominator)
+            };
+            let df = t
+                .denominator_df
+                .map_or(String::new(), |d| format!(", {} den. df", num(d)));
+            let power = t.power.map_or(String::new(), |x| {
+                format!(", power {}", super::text::probability(x))
+            });
+            format!("{} over {over}{df}{power}", t.label)
+        })
+        .collect();
+    parts.join("; ")
+}
+
+/// One arrangement of treatments on units and what it costs, in a sentence.
+pub fn arrangement(a: &Arrangement, best_cost: Option<f64>, p: &Constraints) -> String {
+    let mut name: Vec<String> = a
+        .randomised
+        .iter()
+        .map(|r| format!("{} on {}", r.treatment, r.unit))
+        .collect();
+    name.extend(a.without.iter().map(|u| format!("no {u}")));
+    let name = if name.is_empty() {
+        "As given".to_string()
+    } else {
+        let n = name.join(", ");
+        let mut c = n.chars();
+        c.next().map_or(String::new(), |f| {
+            f.to_uppercase().collect::<String>() + c.as_str()
+        })
+    };
+    match (&a.best, &a.nearest) {
+        (Some(b), _) if a.chosen => format!(
+            "{name} (the best layout): {}. Tests: {}.",
+            description(b),
+            tests_in_brief(b)
+        ),
+        (Some(b), _) => {
+            let more = best_cost.map_or(String::new(), |c| {
+                format!(", {} more than the best", num(b.cost - c))
+            });
+            format!(
+                "{name}: its cheapest layout that meets the goal costs {}{more}: {}. Tests: {}.",
+                num(b.cost),
+                description(b),
+                tests_in_brief(b)
+            )
+        }
+        (None, Some(n)) => format!(
+            "{name}: no layout within the budget and limits meets the goal. The nearest, {}, fails because {}. Tests: {}.",
+            description(n),
+            n.rejected
+                .map_or("it is rejected".into(), |r| failure(n, r, p)),
+            tests_in_brief(n)
+        ),
+        (None, None) => format!(
+            "{name}: no layout meets the goal; every layout is over the budget or beyond the limits{}.",
+            if p.budget.is_none() && p.limits.is_empty() {
+                " (or the search found none)"
+            } else {
+                ""
+            }
+        ),
+    }
+}
+
 /// Why a must-test term is not tested, in words.
 pub fn must_test_reason(t: &MustTestReport) -> String {
     if let Some(a) = &t.absent {
@@ -64,38 +234,10 @@ pub fn must_test_reason(t: &MustTestReport) -> String {
 /// Why the cheapest candidate of a rejection is rejected, in a sentence.
 pub fn why(r: &RejectionReport, p: &Constraints) -> String {
     let c = &r.cheapest;
-    let test = c.failing.and_then(|k| c.tests.get(k));
     let layout = description(c);
-    match (r.reason, test) {
-        (Rejection::Budget, _) => format!(
-            "{layout}, over the budget of {} by {}",
-            p.budget.map_or("none".into(), num),
-            num(c.cost - p.budget.unwrap_or(0.0))
-        ),
-        (Rejection::Untestable, Some(t)) => format!(
-            "with {layout}, {} cannot be tested: {}",
-            t.label,
-            must_test_reason(t)
-        ),
-        (Rejection::MinDf, Some(t)) => match t.denominator_df {
-            Some(df) => format!(
-                "with {layout}, {} is tested with only {} denominator df (min_df {})",
-                t.label,
-                num(df),
-                p.min_df.map_or("-".into(), num)
-            ),
-            None => format!(
-                "with {layout}, {} has only a quasi-F test, whose Satterthwaite df are unknown without an [sd] table, so min_df cannot be met",
-                t.label
-            ),
-        },
-        (Rejection::Power, Some(t)) => format!(
-            "with {layout}, {} has power {} (target {})",
-            t.label,
-            t.power.map_or("unknown".into(), |x| format!("{x:.3}")),
-            p.target_power.unwrap_or(0.0)
-        ),
-        (_, None) => format!("{layout}: rejected ({})", rejection(r.reason)),
+    match r.reason {
+        Rejection::Budget | Rejection::Limit => format!("{layout}: {}", failure(c, r.reason, p)),
+        _ => format!("with {layout}, {}", failure(c, r.reason, p)),
     }
 }
 
@@ -103,6 +245,7 @@ pub fn why(r: &RejectionReport, p: &Constraints) -> String {
 pub fn rejection(r: Rejection) -> &'static str {
     match r {
         Rejection::Budget => "over budget",
+        Rejection::Limit => "beyond a capacity limit",
         Rejection::Untestable => "a must-test term untestable",
         Rejection::MinDf => "too few denominator df",
         Rejection::Power => "below the power target",

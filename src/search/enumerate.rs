@@ -36,6 +36,18 @@ pub fn rank_key(o: &Outcome) -> (i128, std::cmp::Reverse<OrdF64>, std::cmp::Reve
     )
 }
 
+/// How near a rejected candidate comes to meeting the goal, nearest first: one short of
+/// the power target only (the most power first), then short of min_df (the most df
+/// first), then untestable (the cheapest first).
+pub fn miss_key(o: &Outcome) -> (u8, OrdF64, i128) {
+    let cost = (o.cost * 1e6).round() as i128;
+    match o.rejection {
+        Some(Rejection::Power) => (0, OrdF64(-o.min_power.unwrap_or(-1.0)), cost),
+        Some(Rejection::MinDf) => (1, OrdF64(-o.min_df.unwrap_or(-1.0)), cost),
+        _ => (2, OrdF64(0.0), cost),
+    }
+}
+
 /// An f64 ordered by `total_cmp`.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct OrdF64(pub f64);
@@ -61,6 +73,8 @@ pub struct Tally {
     pub min_df: u64,
     pub power: u64,
     pub budget: u64,
+    /// Candidates beyond a capacity limit.
+    pub limit: u64,
     /// The best feasible candidates, ranked, at most `keep`.
     pub top: Vec<Entry>,
     pub keep: usize,
@@ -68,7 +82,12 @@ pub struct Tally {
     /// frontier is taken from them.
     pub frontier: Vec<Entry>,
     /// The cheapest candidate rejected for each reason (in `Rejection::ALL` order).
-    pub cheapest: [Option<Entry>; 4],
+    pub cheapest: [Option<Entry>; 5],
+    /// The best feasible candidate of each structure, and its nearest miss among the
+    /// candidates that failed a test constraint (`miss_key`), by structure index.
+    pub per_structure: Vec<(Option<Entry>, Option<Entry>)>,
+    /// Whether `per_structure` is kept (a search that chooses where treatments go).
+    pub track_structures: bool,
     /// Among candidates failing only the power target, the one with the highest power.
     pub nearest_power: Option<Entry>,
     /// Among testable candidates failing min_df, the one with the most df.
@@ -93,6 +112,7 @@ impl Tally {
             Rejection::Untestable => self.untestable,
             Rejection::MinDf => self.min_df,
             Rejection::Power => self.power,
+            Rejection::Limit => self.limit,
         }
     }
 
@@ -106,16 +126,52 @@ impl Tally {
         }
     }
 
-    /// Counts a branch cut by the budget: `n` candidates, the cheapest of them `e`.
+    /// Counts a branch cut by the budget or a limit: `n` candidates, the cheapest of them
+    /// `e`.
     pub fn cut(&mut self, n: u64, e: Entry) {
-        self.budget += n;
-        self.note_cheapest(Rejection::Budget, &e);
+        let r = e.outcome.rejection.unwrap_or(Rejection::Budget);
+        match r {
+            Rejection::Limit => self.limit += n,
+            _ => self.budget += n,
+        }
+        self.note_cheapest(r, &e);
+    }
+
+    fn note_structure(&mut self, e: &Entry) {
+        if self.per_structure.len() <= e.variant {
+            self.per_structure.resize(e.variant + 1, (None, None));
+        }
+        let slot = &mut self.per_structure[e.variant];
+        match e.outcome.rejection {
+            None => {
+                if slot
+                    .0
+                    .as_ref()
+                    .is_none_or(|b| rank_key(&e.outcome) < rank_key(&b.outcome))
+                {
+                    slot.0 = Some(e.clone());
+                }
+            }
+            Some(Rejection::Untestable | Rejection::MinDf | Rejection::Power) => {
+                if slot
+                    .1
+                    .as_ref()
+                    .is_none_or(|b| miss_key(&e.outcome) < miss_key(&b.outcome))
+                {
+                    slot.1 = Some(e.clone());
+                }
+            }
+            Some(_) => {}
+        }
     }
 
     pub fn add(&mut self, e: Entry) {
         let o = e.outcome;
-        if o.rejection != Some(Rejection::Budget) {
+        if !matches!(o.rejection, Some(Rejection::Budget | Rejection::Limit)) {
             self.examined += 1;
+        }
+        if self.track_structures {
+            self.note_structure(&e);
         }
         match o.rejection {
             None => {
@@ -131,6 +187,7 @@ impl Tally {
             Some(r) => {
                 match r {
                     Rejection::Budget => self.budget += 1,
+                    Rejection::Limit => self.limit += 1,
                     Rejection::Untestable => self.untestable += 1,
                     Rejection::MinDf => {
                         self.min_df += 1;
@@ -200,6 +257,9 @@ const BATCH: usize = 16_384;
 /// screening the rest in parallel batches, and gathers the tally.
 pub fn enumerate(screens: &[Screen], keep: usize, prune: bool, progress: &dyn Progress) -> Tally {
     let mut tally = Tally::new(keep);
+    tally.track_structures = screens
+        .iter()
+        .any(|s| !s.variant.randomised.is_empty() || !s.variant.without_units.is_empty());
     let mut batch: Vec<(usize, Levels)> = Vec::with_capacity(BATCH);
     for (vi, screen) in screens.iter().enumerate() {
         let dims = &screen.variant.dims;
@@ -243,7 +303,8 @@ pub fn enumerate(screens: &[Screen], keep: usize, prune: bool, progress: &dyn Pr
             set(&mut levels, dim.target, dim.values[k]);
             if prune {
                 let bound = screen.cost(&levels);
-                if screen.over_budget(bound) {
+                let beyond = screen.beyond_limits(&levels).is_some();
+                if beyond || screen.over_budget(bound) {
                     let n = (dim.values.len() - k) as u64 * below[depth];
                     tally.cut(
                         n,
@@ -252,7 +313,11 @@ pub fn enumerate(screens: &[Screen], keep: usize, prune: bool, progress: &dyn Pr
                             levels: levels.clone(),
                             outcome: Outcome {
                                 cost: bound,
-                                rejection: Some(Rejection::Budget),
+                                rejection: Some(if beyond {
+                                    Rejection::Limit
+                                } else {
+                                    Rejection::Budget
+                                }),
                                 failing: None,
                                 min_df: None,
                                 min_power: None,

@@ -28,6 +28,8 @@ use super::space::{Target, Variant, get};
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord, serde::Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum Rejection {
+    /// More units of some kind than a stated capacity limit allows.
+    Limit,
     Budget,
     Untestable,
     MinDf,
@@ -35,15 +37,17 @@ pub enum Rejection {
 }
 
 impl Rejection {
-    pub const ALL: [Rejection; 4] = [
+    pub const ALL: [Rejection; 5] = [
         Rejection::Untestable,
         Rejection::MinDf,
         Rejection::Power,
         Rejection::Budget,
+        Rejection::Limit,
     ];
 
     pub fn name(self) -> &'static str {
         match self {
+            Rejection::Limit => "limit",
             Rejection::Budget => "budget",
             Rejection::Untestable => "untestable",
             Rejection::MinDf => "min_df",
@@ -343,7 +347,25 @@ impl Screen {
         total
     }
 
-    /// Screens one candidate, budget first (see `Rejection`).
+    /// The first capacity limit these level counts exceed (its index in the problem).
+    /// A limit is a product of level counts, so it never falls when a count grows.
+    pub fn beyond_limits(&self, levels: &Levels) -> Option<usize> {
+        self.variant.limits.iter().find_map(|l| {
+            let mut n: u128 = if l.subscripts & REPLICATE != 0 {
+                levels.replicates as u128
+            } else {
+                1
+            };
+            for (i, &k) in levels.per_factor.iter().enumerate() {
+                if l.subscripts & (1 << i) != 0 {
+                    n = n.saturating_mul(k as u128);
+                }
+            }
+            (n > l.at_most as u128).then_some(l.limit)
+        })
+    }
+
+    /// Screens one candidate, capacity limits and budget first (see `Rejection`).
     pub fn evaluate(&self, levels: &Levels, criticals: &mut Criticals) -> Outcome {
         let cost = self.cost(levels);
         let mut out = Outcome {
@@ -353,6 +375,10 @@ impl Screen {
             min_df: None,
             min_power: None,
         };
+        if self.beyond_limits(levels).is_some() {
+            out.rejection = Some(Rejection::Limit);
+            return out;
+        }
         if self.over_budget(cost) {
             out.rejection = Some(Rejection::Budget);
             return out;
@@ -497,10 +523,22 @@ fn locate(
     }
     let mut live: Mask = 0;
     for (f, i) in variant.index.iter().enumerate() {
-        if let Some(i) = i
-            && base_live & (1 << f) != 0
-        {
-            live |= 1 << i;
+        if base_live & (1 << f) == 0 {
+            continue;
+        }
+        match i {
+            Some(i) => live |= 1 << i,
+            // A unit that has one member per treatment combination here is that
+            // interaction of the model.
+            None => match variant.structure.units.by_name(&base.factors[f].name) {
+                Some(u) if matches!(u.place, crate::layout::Place::Term(_)) => live |= u.live(),
+                _ => {
+                    return Err(format!(
+                        "{label} is not a term of this layout: {} has no term of its own here",
+                        base.factors[f].name
+                    ));
+                }
+            },
         }
     }
     if let Some(t) = model.terms.iter().position(|t| t.live == live) {

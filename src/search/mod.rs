@@ -14,6 +14,7 @@
 pub mod enumerate;
 pub mod evaluate;
 pub mod optimize;
+pub mod placement;
 pub mod problem;
 pub mod report;
 pub mod space;

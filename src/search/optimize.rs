@@ -52,12 +52,14 @@ const MAX_TIES: usize = 8;
 pub struct Optimized {
     /// The best candidate of each structure that has one, ranked.
     pub best: Vec<Entry>,
+    /// The best candidate of each structure, by structure index.
+    pub per_structure: Vec<Option<Entry>>,
     /// Integer programs solved.
     pub solves: u64,
     /// Candidates screened exactly (the programs' answers, and any enumeration).
     pub screened: u64,
     /// Screened candidates rejected, by reason: budget, untestable, min_df, power.
-    pub rejected: [u64; 4],
+    pub rejected: [u64; 5],
     /// Patterns finished by enumeration after too many cuts.
     pub fallbacks: u64,
     /// Structures enumerated whole, for a finite population.
@@ -79,12 +81,13 @@ pub fn optimize(
         .collect::<Result<_, String>>()?;
     let mut out = Optimized::default();
     for p in per {
+        out.per_structure.push(p.best.first().cloned());
         out.best.extend(p.best);
         out.solves += p.solves;
         out.screened += p.screened;
         out.fallbacks += p.fallbacks;
         out.enumerated += p.enumerated;
-        for k in 0..4 {
+        for k in 0..5 {
             out.rejected[k] += p.rejected[k];
         }
     }
@@ -99,6 +102,7 @@ fn slot(r: Rejection) -> usize {
         Rejection::Untestable => 1,
         Rejection::MinDf => 2,
         Rejection::Power => 3,
+        Rejection::Limit => 4,
     }
 }
 
@@ -439,6 +443,11 @@ impl Program<'_> {
         if let Some(cap) = cap {
             b.constraints
                 .push(cost.clone().leq(cap * (1.0 + 1e-9) + 1e-7));
+        }
+        // Capacity limits: products of level counts, like the cost's.
+        for l in &v.limits {
+            let n = self.monomial(&mut b, 0, l.subscripts, false);
+            b.constraints.push(n.leq(l.at_most as f64 + 1e-7));
         }
         // Denominator df of the exact tests.
         if let Some(min) = self.min_df {

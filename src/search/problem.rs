@@ -46,6 +46,15 @@ pub struct MustTest {
     pub live: Mask,
 }
 
+/// A capacity the user states: at most `at_most` units of one kind, in all or per
+/// member of a larger unit.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Limit {
+    pub unit: String,
+    pub per: Option<String>,
+    pub at_most: u64,
+}
+
 #[derive(Debug, Clone)]
 pub struct Problem {
     pub base: Layout,
@@ -61,6 +70,10 @@ pub struct Problem {
     pub ranges: Vec<Option<Range>>,
     pub replicates: Range,
     pub choices: Vec<Choice>,
+    /// Capacity limits, each a product of level counts that candidates may not exceed.
+    pub limits: Vec<Limit>,
+    /// In a layout of units: placements, optional units and count ranges.
+    pub units: Option<super::placement::UnitSpace>,
 }
 
 impl Problem {
@@ -192,29 +205,17 @@ impl Problem {
             lo: base.levels.replicates,
             hi: base.levels.replicates,
         };
+        let declared = s.units.declared();
+        let mut unit_levels: Vec<(String, Range, Option<usize>)> = Vec::new();
         for (key, value) in &search.levels {
             let line = at(value.span());
             let v = value.get_ref();
             let key_name = key.trim();
-            // In a layout of units, the smallest unit's count per combination of what is
-            // above it is the replicates; a unit with one member per combination has no
-            // count of its own to search.
-            let bottom = s.units.alias(crate::term::REPLICATE);
-            let name = if Some(key_name) == bottom && s.factor_index(key_name).is_none() {
-                "replicates"
-            } else {
-                key_name
-            };
-            if let Some(u) = s.units.by_name(key_name)
-                && matches!(u.place, crate::layout::Place::Term(_))
-            {
-                return Err(Error::invalid(
-                    line,
-                    format!(
-                        "[search.levels] \"{key_name}\" has one member per combination of the treatments randomised to it, so it has no count of its own to search; the search does not yet change which units are replicated: give it a count of two per combination in the file to search over it"
-                    ),
-                ));
+            if declared {
+                unit_levels.push((key_name.to_string(), read_range(key_name, v, line)?, line));
+                continue;
             }
+            let name = key_name;
             let factor = s.factor_index(name);
             if factor.is_some() && name == "replicates" {
                 return Err(Error::invalid(
@@ -231,23 +232,8 @@ impl Problem {
                     ),
                 ));
             }
-            let [lo, hi] = v[..] else {
-                return Err(Error::invalid(
-                    line,
-                    format!(
-                        "[search.levels] \"{name}\" must be a range of two whole numbers, [lowest, highest] (got {} numbers)",
-                        v.len()
-                    ),
-                ));
-            };
-            if lo > hi {
-                return Err(Error::invalid(
-                    line,
-                    format!(
-                        "[search.levels] \"{name}\" = [{lo}, {hi}] is inverted: write the lowest level count first"
-                    ),
-                ));
-            }
+            let range = read_range(name, v, line)?;
+            let (lo, hi) = (range.lo, range.hi);
             let least = match factor {
                 Some(i) if s.factors[i].kind == Kind::Fixed => 2,
                 _ => 1,
@@ -269,10 +255,6 @@ impl Problem {
                     ),
                 ));
             }
-            let range = Range {
-                lo: lo as u64,
-                hi: hi as u64,
-            };
             match factor {
                 Some(i) => {
                     if let Some(p) = s.factors[i].population
@@ -303,6 +285,42 @@ impl Problem {
                 "[search.levels]: the largest layout in these ranges has more observations than fit in a 64-bit count: narrow the ranges",
             ));
         }
+
+        if !declared && let Some(p) = search.placement.first() {
+            return Err(Error::invalid(
+                at(p.span()),
+                "[[search.placement]] chooses the unit a treatment is randomised to, and this layout has no units: describe it with [[unit]] and [[treatment]] tables (see docs/units.md), or use [[search.choice]] to change nesting",
+            ));
+        }
+        if !declared && let Some(o) = search.optional_units.first() {
+            return Err(Error::invalid(
+                at(o.span()),
+                "[search] optional_units names units, and this layout has no units: use a [[search.choice]] table with `optional = true` for a factor the layout may do without",
+            ));
+        }
+        if declared && let Some(c) = search.choice.first() {
+            return Err(Error::invalid(
+                at(c.span()),
+                "[[search.choice]] changes factors, and this layout is described by units: list the units a treatment may go to in [[search.placement]], and units the layout may do without in `optional_units`",
+            ));
+        }
+        let limits = read_limits(spec, search, text, &base)?;
+        let units = if declared {
+            for (name, range, line) in &unit_levels {
+                if range.lo < 1 {
+                    return Err(Error::invalid(
+                        *line,
+                        format!(
+                            "[search.levels] \"{name}\" = [{}, {}] starts below 1: every unit and treatment needs at least 1",
+                            range.lo, range.hi
+                        ),
+                    ));
+                }
+            }
+            Some(super::placement::UnitSpace::read(spec, text, unit_levels)?)
+        } else {
+            None
+        };
 
         let mut choices: Vec<Choice> = Vec::new();
         for c in &search.choice {
@@ -398,7 +416,17 @@ impl Problem {
             ranges,
             replicates,
             choices,
+            limits,
+            units,
         })
+    }
+
+    /// The arrangement of units and treatments the search chooses between, in a layout of
+    /// units with placements or optional units.
+    pub fn chooses_arrangement(&self) -> bool {
+        self.units
+            .as_ref()
+            .is_some_and(|u| !u.placements.is_empty() || !u.optional.is_empty())
     }
 
     /// Reads a problem file: the layout, its planning values (with the command line's
@@ -420,4 +448,141 @@ impl Problem {
         };
         Problem::from_spec(&spec, &text, layout, plan, power).map_err(|e| e.in_file(path))
     }
+}
+
+/// A `[search.levels]` value: two whole numbers, the lowest first.
+fn read_range(name: &str, v: &[i64], line: Option<usize>) -> Result<Range, Error> {
+    let [lo, hi] = v[..] else {
+        return Err(Error::invalid(
+            line,
+            format!(
+                "[search.levels] \"{name}\" must be a range of two whole numbers, [lowest, highest] (got {} numbers)",
+                v.len()
+            ),
+        ));
+    };
+    if lo > hi {
+        return Err(Error::invalid(
+            line,
+            format!(
+                "[search.levels] \"{name}\" = [{lo}, {hi}] is inverted: write the lowest level count first"
+            ),
+        ));
+    }
+    if lo < 0 {
+        return Err(Error::invalid(
+            line,
+            format!(
+                "[search.levels] \"{name}\" = [{lo}, {hi}] starts below 1: counts are whole numbers of at least 1"
+            ),
+        ));
+    }
+    Ok(Range {
+        lo: lo as u64,
+        hi: hi as u64,
+    })
+}
+
+/// The `[[search.limit]]` tables, checked against the base layout.
+fn read_limits(
+    spec: &Spec,
+    search: &spec::SearchSpec,
+    text: &str,
+    base: &Layout,
+) -> Result<Vec<Limit>, Error> {
+    let at = |span: std::ops::Range<usize>| Some(spec::line_of(text, span.start));
+    let s = &base.structure;
+    let declared = s.units.declared();
+    let known = || {
+        if declared {
+            s.units
+                .list
+                .iter()
+                .map(|u| u.name.clone())
+                .collect::<Vec<_>>()
+                .join(", ")
+        } else {
+            s.known_names()
+        }
+    };
+    let exists = |name: &str| {
+        if declared {
+            s.units.by_name(name).is_some()
+        } else {
+            s.factor_index(name).is_some()
+        }
+    };
+    let what = if declared { "unit" } else { "factor" };
+    let mut out: Vec<Limit> = Vec::new();
+    for l in &search.limit {
+        let line = at(l.span());
+        let l = l.get_ref();
+        let unit = l.unit.get_ref().trim().to_string();
+        if !exists(&unit) {
+            return Err(Error::invalid(
+                at(l.unit.span()),
+                format!(
+                    "[[search.limit]] unit \"{unit}\" is not a {what} (known: {})",
+                    known()
+                ),
+            ));
+        }
+        let n = *l.at_most.get_ref();
+        if n < 1 {
+            return Err(Error::invalid(
+                at(l.at_most.span()),
+                format!(
+                    "[[search.limit]] \"{unit}\": at_most must be a whole number of at least 1 (got {n})"
+                ),
+            ));
+        }
+        let per = match &l.per {
+            None => None,
+            Some(p) => {
+                let p_name = p.get_ref().trim().to_string();
+                let line = at(p.span());
+                if !declared {
+                    return Err(Error::invalid(
+                        line,
+                        format!(
+                            "[[search.limit]] \"{unit}\": in a layout of factors a factor's levels are already counted per combination of what it is nested in, so `per` is not needed: narrow its range under [search.levels] instead"
+                        ),
+                    ));
+                }
+                let index = |name: &str| {
+                    spec.unit
+                        .iter()
+                        .position(|x| x.get_ref().name.get_ref().trim() == name)
+                };
+                let (Some(u), Some(q)) = (index(&unit), index(&p_name)) else {
+                    return Err(Error::invalid(
+                        line,
+                        format!(
+                            "[[search.limit]] \"{unit}\": per \"{p_name}\" is not a unit declared in the file (known: {})",
+                            known()
+                        ),
+                    ));
+                };
+                if !super::placement::is_within(spec, u, q) {
+                    return Err(Error::invalid(
+                        line,
+                        format!(
+                            "[[search.limit]] \"{unit}\" per \"{p_name}\": {unit} is not within {p_name}, so there is no count of one per the other: name a unit it is within, or leave out `per` for a limit in all"
+                        ),
+                    ));
+                }
+                Some(p_name)
+            }
+        };
+        let limit = Limit {
+            unit,
+            per,
+            at_most: n as u64,
+        };
+        if out.contains(&limit) {
+            return Err(Error::invalid(line, "[[search.limit]] is given twice"));
+        }
+        out.push(limit);
+    }
+    Ok(out)
 }

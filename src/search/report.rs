@@ -42,6 +42,57 @@ pub struct SearchReport {
     pub without_budget: Option<CandidateReport>,
     pub constraints: Constraints,
     pub notes: Notes,
+    /// When the search chooses where treatments go (or which units to keep): the best
+    /// layout of each arrangement, or the nearest miss when none meets the goal.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub arrangements: Vec<Arrangement>,
+}
+
+/// One arrangement of treatments on units, and what the search found for it.
+#[derive(Debug, Clone, Serialize)]
+pub struct Arrangement {
+    /// Each treatment the search places, and the unit it is randomised to here.
+    pub randomised: Vec<Randomised>,
+    /// Optional units this arrangement does without.
+    pub without: Vec<String>,
+    /// Whether the best layout of the search has this arrangement.
+    pub chosen: bool,
+    /// Its cheapest layout that meets the goal.
+    pub best: Option<CandidateReport>,
+    /// When none does: its nearest miss within the budget and limits (the most power
+    /// short of the target, else the most df short of min_df, else the cheapest
+    /// untestable layout), which says what it fails.
+    pub nearest: Option<CandidateReport>,
+}
+
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct Randomised {
+    pub treatment: String,
+    pub unit: String,
+}
+
+/// A unit of a candidate layout, as the user counts it.
+#[derive(Debug, Clone, Serialize)]
+pub struct UnitCount {
+    pub name: String,
+    /// Units per member of each unit it is within (in all, at the top).
+    pub count: u64,
+    pub within: Vec<String>,
+    pub in_all: u64,
+    /// Treatments randomised to it.
+    pub carries: Vec<String>,
+    /// Below the smallest unit a treatment is randomised to: a subsample.
+    pub subsample: bool,
+}
+
+/// A capacity limit a candidate exceeds.
+#[derive(Debug, Clone, Serialize)]
+pub struct LimitReport {
+    pub unit: String,
+    pub per: Option<String>,
+    pub at_most: u64,
+    /// What the candidate needs.
+    pub needed: u64,
 }
 
 /// What the reader should know about how the search was run.
@@ -88,6 +139,7 @@ pub struct Counts {
     pub min_df: u64,
     pub power: u64,
     pub budget: u64,
+    pub limit: u64,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -98,6 +150,8 @@ pub struct Constraints {
     pub exact_only: bool,
     pub target_power: Option<f64>,
     pub alpha: f64,
+    /// Capacity limits: at most so many units, in all or per member of a larger unit.
+    pub limits: Vec<LimitReport>,
 }
 
 #[derive(Debug, Clone, Serialize)]
@@ -114,6 +168,12 @@ pub struct CandidateReport {
     pub observations: u64,
     /// The structural picks: "bench within light, cultivar; no rack".
     pub structure: String,
+    /// In a layout of units: every unit, largest first, with its count.
+    #[serde(skip_serializing_if = "Vec::is_empty")]
+    pub units: Vec<UnitCount>,
+    /// The capacity limit this candidate exceeds, when it does.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub beyond: Option<LimitReport>,
     /// Cells of the layout (every combination of the factors' levels).
     pub cells: u64,
     /// Every factor left in the layout.
@@ -193,6 +253,7 @@ pub fn build(
         })
         .collect();
     let best = candidates.first().cloned();
+    let best_variant = tally.top.first().map(|e| e.variant);
     let binding = best.is_none().then(|| binding(search, &tally, &rejections));
     let without_budget = relaxed.map(|e| describe(search, &e));
     SearchReport {
@@ -210,12 +271,14 @@ pub fn build(
             min_df: tally.min_df,
             power: tally.power,
             budget: tally.budget,
+            limit: tally.limit,
         },
         rejections,
         binding,
         without_budget,
         constraints: constraints(search),
         notes,
+        arrangements: arrangements(search, &tally.per_structure, best_variant),
     }
 }
 
@@ -226,6 +289,12 @@ pub fn build_optimized(search: &Search, options: &Options, found: Optimized) -> 
     let mut notes = notes(search);
     notes.optimizer = Some((found.solves, found.screened));
     let best = candidates.first().cloned();
+    let best_variant = found.best.first().map(|e| e.variant);
+    let per_structure: Vec<(Option<Entry>, Option<Entry>)> = found
+        .per_structure
+        .iter()
+        .map(|e| (e.clone(), None))
+        .collect();
     let binding = best.is_none().then_some(Binding::Proven);
     SearchReport {
         name: search.problem.base.name.clone(),
@@ -242,12 +311,14 @@ pub fn build_optimized(search: &Search, options: &Options, found: Optimized) -> 
             min_df: found.rejected[2],
             power: found.rejected[3],
             budget: found.rejected[0],
+            limit: found.rejected[4],
         },
         rejections: Vec::new(),
         binding,
         without_budget: None,
         constraints: constraints(search),
         notes,
+        arrangements: arrangements(search, &per_structure, best_variant),
     }
 }
 
@@ -260,7 +331,87 @@ fn constraints(search: &Search) -> Constraints {
         exact_only: p.exact_only,
         target_power: p.target_power,
         alpha: p.plan.alpha,
+        limits: p
+            .limits
+            .iter()
+            .map(|l| LimitReport {
+                unit: l.unit.clone(),
+                per: l.per.clone(),
+                at_most: l.at_most,
+                needed: 0,
+            })
+            .collect(),
     }
+}
+
+/// The arrangements of a search that chooses where treatments go, each with its best
+/// layout or nearest miss; `per_structure` holds, by structure, its best feasible
+/// candidate and its cheapest candidate that failed a test constraint.
+fn arrangements(
+    search: &Search,
+    per_structure: &[(Option<Entry>, Option<Entry>)],
+    best: Option<usize>,
+) -> Vec<Arrangement> {
+    let Some(space) = search.problem.units.as_ref() else {
+        return Vec::new();
+    };
+    if !search.problem.chooses_arrangement() {
+        return Vec::new();
+    }
+    let key = |vi: usize| {
+        let v = &search.screens[vi].variant;
+        let randomised: Vec<Randomised> = v
+            .randomised
+            .iter()
+            .filter(|(t, _)| space.has_choice(t))
+            .map(|(t, u)| Randomised {
+                treatment: t.clone(),
+                unit: u.clone(),
+            })
+            .collect();
+        (randomised, v.without_units.clone())
+    };
+    // (the picks that name an arrangement, its structures)
+    type Group = ((Vec<Randomised>, Vec<String>), Vec<usize>);
+    let mut groups: Vec<Group> = Vec::new();
+    for vi in 0..search.screens.len() {
+        let k = key(vi);
+        match groups.iter_mut().find(|(g, _)| *g == k) {
+            Some((_, members)) => members.push(vi),
+            None => groups.push((k, vec![vi])),
+        }
+    }
+    let mut out: Vec<Arrangement> = groups
+        .into_iter()
+        .map(|((randomised, without), members)| {
+            let entry = |vi: usize| per_structure.get(vi);
+            let best_entry = members
+                .iter()
+                .filter_map(|&vi| entry(vi).and_then(|e| e.0.as_ref()))
+                .min_by_key(|e| super::enumerate::rank_key(&e.outcome));
+            let nearest = match best_entry {
+                Some(_) => None,
+                None => members
+                    .iter()
+                    .filter_map(|&vi| entry(vi).and_then(|e| e.1.as_ref()))
+                    .min_by_key(|e| super::enumerate::miss_key(&e.outcome)),
+            };
+            Arrangement {
+                randomised,
+                without,
+                chosen: best.is_some_and(|b| members.contains(&b)),
+                best: best_entry.map(|e| describe(search, e)),
+                nearest: nearest.map(|e| describe(search, e)),
+            }
+        })
+        .collect();
+    // The best layout's arrangement first, then those that meet the goal, cheapest first.
+    out.sort_by(|a, b| {
+        let key = |x: &Arrangement| (!x.chosen, x.best.as_ref().map_or(f64::INFINITY, |c| c.cost));
+        let (ka, kb) = (key(a), key(b));
+        ka.0.cmp(&kb.0).then(ka.1.total_cmp(&kb.1))
+    });
+    out
 }
 
 fn notes(search: &Search) -> Notes {
@@ -366,11 +517,52 @@ pub fn describe(search: &Search, e: &Entry) -> CandidateReport {
         .iter()
         .map(|&f| base.factors[f].name.clone())
         .collect();
+    let units = report
+        .as_ref()
+        .and_then(|r| r.strata.as_ref())
+        .map_or(Vec::new(), |st| {
+            st.strata
+                .iter()
+                .map(|x| UnitCount {
+                    name: x.unit.clone(),
+                    count: x.count,
+                    within: x.within.clone(),
+                    in_all: x.total,
+                    carries: x.carries.clone(),
+                    subsample: x.subsample,
+                })
+                .collect()
+        });
+    let beyond = screen.beyond_limits(levels).map(|k| {
+        let l = &search.problem.limits[k];
+        let m = v.limits.iter().find(|m| m.limit == k);
+        let needed = m.map_or(0, |m| {
+            let mut n = if m.subscripts & crate::term::REPLICATE != 0 {
+                levels.replicates
+            } else {
+                1
+            };
+            for (i, &c) in levels.per_factor.iter().enumerate() {
+                if m.subscripts & (1 << i) != 0 {
+                    n = n.saturating_mul(c);
+                }
+            }
+            n
+        });
+        LimitReport {
+            unit: l.unit.clone(),
+            per: l.per.clone(),
+            at_most: l.at_most,
+            needed,
+        }
+    });
     CandidateReport {
         cost: e.outcome.cost,
         replicates: levels.replicates,
         observations: levels.observations(),
-        structure: v.describe(base),
+        structure: v.describe(base, &search.problem),
+        units,
+        beyond,
         cells: levels.cells(),
         factors,
         left_out,

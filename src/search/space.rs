@@ -44,6 +44,22 @@ pub struct Variant {
     /// Level counts of the factors that are not searched, and the dimensions that are.
     pub template: Levels,
     pub dims: Vec<Dim>,
+    /// In a layout of units: each treatment and the unit it is randomised to.
+    pub randomised: Vec<(String, String)>,
+    /// In a layout of units: the optional units this structure does without.
+    pub without_units: Vec<String>,
+    /// The capacity limits that apply here.
+    pub limits: Vec<LimitMask>,
+}
+
+/// A capacity limit in one structure: the product of the level counts of `subscripts`
+/// (`REPLICATE`: the replicates) is at most `at_most`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct LimitMask {
+    /// The limit's index in the problem.
+    pub limit: usize,
+    pub subscripts: Mask,
+    pub at_most: u64,
 }
 
 impl Variant {
@@ -61,8 +77,23 @@ impl Variant {
         levels
     }
 
-    /// "bench within light, cultivar; rack left out", in base names.
-    pub fn describe(&self, base: &Structure) -> String {
+    /// "bench within light, cultivar; rack left out", in base names; in a layout of
+    /// units, "light on chamber; no shelf" for the treatments with a choice of unit.
+    pub fn describe(&self, base: &Structure, problem: &Problem) -> String {
+        if let Some(space) = &problem.units {
+            let mut parts: Vec<String> = self
+                .randomised
+                .iter()
+                .filter(|(t, _)| space.has_choice(t))
+                .map(|(t, u)| format!("{t} on {u}"))
+                .collect();
+            parts.extend(self.without_units.iter().map(|u| format!("no {u}")));
+            return if parts.is_empty() {
+                "as given".into()
+            } else {
+                parts.join("; ")
+            };
+        }
         let mut parts: Vec<String> = self
             .nesting
             .iter()
@@ -101,8 +132,41 @@ pub fn get(levels: &Levels, target: Target) -> u64 {
     }
 }
 
+/// The capacity limits of a problem as masks of one structure's subscripts; a limit on
+/// a unit (or relative to a unit) the structure does without does not apply.
+pub fn limit_masks(problem: &Problem, s: &Structure) -> Vec<LimitMask> {
+    let subscripts = |name: &str| -> Option<Mask> {
+        if s.units.declared() {
+            s.units.by_name(name).map(|u| u.ident)
+        } else {
+            s.factor_index(name)
+                .map(|i| crate::layout::term_of(s, 1 << i).subscripts())
+        }
+    };
+    problem
+        .limits
+        .iter()
+        .enumerate()
+        .filter_map(|(k, l)| {
+            let own = subscripts(&l.unit)?;
+            let mask = match &l.per {
+                None => own,
+                Some(p) => own & !subscripts(p)?,
+            };
+            Some(LimitMask {
+                limit: k,
+                subscripts: mask,
+                at_most: l.at_most,
+            })
+        })
+        .collect()
+}
+
 /// The structures of a problem, and the picks that gave no layout (with why).
 pub fn variants(problem: &Problem) -> (Vec<Variant>, Vec<String>) {
+    if let Some(space) = &problem.units {
+        return space.variants(problem);
+    }
     // Options per choice: (nesting pick, left out?).
     let options: Vec<Vec<(Option<Mask>, bool)>> = problem
         .choices
@@ -216,6 +280,7 @@ fn build(
     for d in &dims {
         set(&mut template, d.target, d.values[0]);
     }
+    let limits = limit_masks(problem, &layout.structure);
     Ok(Variant {
         structure: layout.structure,
         plan,
@@ -224,5 +289,8 @@ fn build(
         nesting,
         template,
         dims,
+        randomised: Vec::new(),
+        without_units: Vec::new(),
+        limits,
     })
 }
