@@ -482,6 +482,18 @@ pub fn search_section(s: &crate::search::SearchReport) -> (String, String, Strin
             let _ = writeln!(md, "**{line}**\n");
         }
     }
+    if !s.arrangements.is_empty() {
+        html.push_str("<h3>Where the treatments go</h3>\n<ul>\n");
+        md.push_str("### Where the treatments go\n\n");
+        let best = s.best.as_ref().map(|b| b.cost);
+        for a in &s.arrangements {
+            let line = super::search_words::arrangement(a, best, &s.constraints);
+            let _ = writeln!(html, "<li>{}</li>", esc(&line));
+            let _ = writeln!(md, "- {line}");
+        }
+        html.push_str("</ul>\n");
+        md.push('\n');
+    }
     let header = [
         "rank",
         "layout",

@@ -264,6 +264,11 @@ pub fn enumerate(screens: &[Screen], keep: usize, prune: bool, progress: &dyn Pr
     for (vi, screen) in screens.iter().enumerate() {
         let dims = &screen.variant.dims;
         let mut levels = screen.variant.template.clone();
+        if dims.is_empty() {
+            // A structure with nothing searched is one candidate.
+            batch.push((vi, levels));
+            continue;
+        }
         let mut picks = vec![0usize; dims.len()];
         // Depth-first over the dimensions, iteratively: `depth` is the dimension being set.
         let mut depth = 0usize;
