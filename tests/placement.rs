@@ -68,7 +68,10 @@ fn layout_text(light_on: &str, chambers: u64, shelves: Option<u64>, pots: u64) -
 /// What `check` finds for one layout: (cost, light's and light x cultivar's den. df and
 /// power), or `None` when the file is no layout (a count that is not a multiple of the
 /// treatments randomised to the unit).
-fn checked(text: &str) -> Option<(f64, Vec<(Verdict, Option<f64>, Option<f64>)>)> {
+/// A must-test term's verdict, den. df and power.
+type Found = (Verdict, Option<f64>, Option<f64>);
+
+fn checked(text: &str) -> Option<(f64, Vec<Found>)> {
     let spec = spec::parse(text).ok()?;
     let layout = Layout::from_spec(&spec, text).ok()?;
     let plan = PlanningValues::from_spec(&spec, text, &layout).expect("planning values");
